@@ -1,0 +1,207 @@
+"""Command-line interface: a thin layer over :func:`geothermmap.run_recipe` and friends.
+
+Errors a user can cause are printed as one message with exit code 1; a traceback only
+with ``--debug``.
+"""
+
+from __future__ import annotations
+
+import functools
+import sys
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import click
+
+from geothermmap.errors import UserError
+from geothermmap.outputs import FROST_CAUTION, OUTPUTS
+
+EXIT_USER_ERROR = 1
+EXIT_INTERNAL_ERROR = 2
+EXIT_INTERRUPTED = 130
+
+
+def _err(msg: str) -> None:
+    click.echo(msg, err=True)
+
+
+def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
+    """Turn user errors into a message and exit code 1 (traceback only with --debug)."""
+
+    @functools.wraps(fn)
+    def wrapper(*args: Any, **kwargs: Any) -> Any:
+        debug = bool(click.get_current_context().find_root().params.get("debug"))
+        try:
+            return fn(*args, **kwargs)
+        except UserError as err:
+            if debug:
+                raise
+            _err(f"error: {err}")
+            sys.exit(EXIT_USER_ERROR)
+        except KeyboardInterrupt:
+            _err("interrupted: stopped cleanly, no partial output left under a final name. "
+                 "Rerun with --resume to continue.")
+            sys.exit(EXIT_INTERRUPTED)
+        except click.exceptions.Exit:
+            raise
+        except Exception as err:  # noqa: BLE001 - last line of defence for users
+            if debug:
+                raise
+            _err(f"internal error: {type(err).__name__}: {err}\n"
+                 "This is a bug in geothermmap or a library; rerun with --debug for details.")
+            sys.exit(EXIT_INTERNAL_ERROR)
+
+    return wrapper
+
+
+@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+@click.option("--debug", is_flag=True, help="Show full tracebacks.")
+@click.version_option(package_name="geothermmap")
+def main(debug: bool) -> None:
+    """geothermmap: ground-temperature and frost maps at depth from surface climatologies
+    and soil rasters.
+
+    Frost and foundation outputs are screening estimates: design burial and foundation
+    depths follow local codes and licensed engineers.
+    """
+
+
+class _Progress:
+    """A rich progress bar on a terminal; silent otherwise."""
+
+    def __init__(self, enabled: bool):
+        self.enabled = enabled and sys.stderr.isatty()
+        self._bar = None
+        self._tasks: dict[str, Any] = {}
+
+    def __enter__(self) -> _Progress:
+        if self.enabled:
+            from rich.console import Console
+            from rich.progress import BarColumn, Progress, TimeElapsedColumn, TimeRemainingColumn
+
+            self._bar = Progress("[progress.description]{task.description}", BarColumn(),
+                                 "{task.completed}/{task.total}", TimeElapsedColumn(),
+                                 TimeRemainingColumn(), console=Console(stderr=True))
+            self._bar.start()
+        return self
+
+    def __call__(self, stage: str, done: int, total: int) -> None:
+        if self._bar is None:
+            return
+        if stage not in self._tasks:
+            label = {"blocks": "computing blocks", "maps": "writing maps"}.get(stage, stage)
+            self._tasks[stage] = self._bar.add_task(label, total=total)
+        self._bar.update(self._tasks[stage], completed=done, total=total)
+
+    def __exit__(self, *exc: object) -> None:
+        if self._bar is not None:
+            self._bar.stop()
+
+
+def _engine_options(fn: Callable[..., Any]) -> Callable[..., Any]:
+    fn = click.option("--scheduler", metavar="ADDRESS",
+                      help="Run on an existing dask.distributed scheduler (tcp://host:port). "
+                           "Workers must share the output folder's filesystem.")(fn)
+    fn = click.option("--workers", type=click.IntRange(1, 512), default=None,
+                      help="Start a local dask.distributed cluster with N worker processes "
+                           "(default: the local threaded scheduler).")(fn)
+    return fn
+
+
+def _run_options(fn: Callable[..., Any]) -> Callable[..., Any]:
+    fn = click.option("--quiet", "-q", is_flag=True, help="No progress bar or summary.")(fn)
+    fn = click.option("--overwrite", is_flag=True,
+                      help="Write into a folder that holds files geothermmap did not write.")(fn)
+    fn = click.option("--resume", is_flag=True,
+                      help="Keep outputs already complete for the same recipe and inputs.")(fn)
+    return _engine_options(fn)
+
+
+def _summarise(result: Any, quiet: bool) -> None:
+    if quiet:
+        return
+    rec = result.record
+    click.echo(f"wrote {len(result.outputs)} maps to {result.output_dir}")
+    for name, path in result.outputs.items():
+        entry = rec["outputs"][name]
+        first = entry["bands"][0]
+        rng = ("no valid cells" if not first["count"] else
+               f"{first['min']:.4g} .. {first['max']:.4g}")
+        click.echo(f"  {path.name:34s} {OUTPUTS[name].units:12s} {rng}")
+    counts = rec.get("counts", {})
+    click.echo(f"cells: {counts.get('valid_cells', 0)} valid, "
+               f"{counts.get('nodata_cells', 0)} nodata")
+    clipped = {k: v for k, v in counts.items()
+               if isinstance(v, int) and v and k not in {"valid_cells", "nodata_cells"}}
+    for k, v in clipped.items():
+        click.echo(f"  {k.replace('_', ' ')}: {v} cells")
+    for note in rec.get("notes", []):
+        click.echo(f"note: {note}")
+    click.echo(f"run record: {result.record_path}")
+    if any(OUTPUTS[n].frost for n in result.outputs):
+        click.echo(f"CAUTION: frost maps are screening estimates. {FROST_CAUTION}")
+
+
+def _run(recipe: Path | str, output: Path, workers: int | None, scheduler: str | None,
+         resume: bool, overwrite: bool, quiet: bool) -> Any:
+    from geothermmap.pipeline import run_recipe
+
+    with _Progress(not quiet) as bar:
+        result = run_recipe(recipe, output, workers=workers, scheduler=scheduler,
+                            resume=resume, overwrite=overwrite, progress=bar)
+    _summarise(result, quiet)
+    return result
+
+
+@main.command()
+@click.argument("recipe", type=click.Path(path_type=Path))
+@click.option("-o", "--output", type=click.Path(path_type=Path), required=True,
+              help="Output folder.")
+@_run_options
+@handle_errors
+def run(recipe: Path, output: Path, workers: int | None, scheduler: str | None, resume: bool,
+        overwrite: bool, quiet: bool) -> None:
+    """Run RECIPE and write the maps into the output folder."""
+    _run(recipe, output, workers, scheduler, resume, overwrite, quiet)
+
+
+@main.command()
+@click.option("-o", "--output", type=click.Path(path_type=Path),
+              default=Path("geothermmap-out/demo"), show_default=True, help="Output folder.")
+@_run_options
+@handle_errors
+def demo(output: Path, workers: int | None, scheduler: str | None, resume: bool,
+         overwrite: bool, quiet: bool) -> None:
+    """Run the bundled demo recipe on the bundled demo region."""
+    from geothermmap.bundled import demo_recipe_path
+
+    _run(demo_recipe_path(), output, workers, scheduler, resume, overwrite, quiet)
+
+
+@main.command()
+@click.argument("recipe", type=click.Path(path_type=Path))
+@handle_errors
+def check(recipe: Path) -> None:
+    """Validate RECIPE and its inputs without computing anything (exit 0 ok, 1 not ok)."""
+    from geothermmap.pipeline import plan_run
+
+    plan = plan_run(recipe)
+    g = plan.grid
+    click.echo(f"recipe {recipe}: ok")
+    click.echo(f"grid: {g.width} x {g.height} cells, {g.crs.to_string()}, "
+               f"pixel {abs(g.transform[0]):g} x {abs(g.transform[4]):g}, chunk {plan.chunk}")
+    for name, layer in plan.layers.items():
+        if layer.is_constant:
+            click.echo(f"  {name:20s} constant {layer.value:g}")
+        else:
+            how = ", ".join(("aligned" if s.same_grid else f"warped ({s.resampling})")
+                            for s in layer.sources)
+            click.echo(f"  {name:20s} {layer.n_bands} band(s), {how}")
+    click.echo(f"outputs: {', '.join(plan.outputs)}")
+    for note in plan.notes:
+        click.echo(f"note: {note}")
+
+
+if __name__ == "__main__":  # pragma: no cover
+    main()

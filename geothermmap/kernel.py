@@ -1,0 +1,210 @@
+"""The per-cell model of a run, applied to one block of aligned inputs (numpy only, no I/O).
+
+This module chains the physics functions (soil properties -> harmonic fit -> periodic
+solution) and applies the recipe's physical-bounds policy. It holds no formulas of its
+own: every equation lives in ``geothermmap.physics``. Work is done on the flattened valid
+cells of a block only, so nodata (a lake, the edge of a source) costs nothing.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from geothermmap.errors import PhysicalBoundsError
+from geothermmap.outputs import OUTPUTS
+from geothermmap.physics import harmonics, periodic, properties
+
+#: Names of the bounds counters reported in the run record.
+BOUNDS_COUNTERS = (
+    "negative_values_clipped",
+    "texture_sum_above_100_percent_rescaled",
+    "fraction_above_1_clipped",
+    "bulk_density_above_particle_density_masked",
+    "water_above_porosity_clipped",
+)
+
+
+@dataclass(frozen=True)
+class KernelConfig:
+    """What the kernel computes for every cell (all picklable, for cluster workers)."""
+
+    outputs: tuple[str, ...]
+    depths_m: tuple[float, ...] = (0.1, 0.5, 1.0, 2.0)
+    harmonics: int = 2
+    conductivity_model: str = "johansen"
+    zero_amplitude_tolerance_K: float = 0.1
+    strict: bool = False
+    extras: dict = field(default_factory=dict, hash=False, compare=False)
+
+
+@dataclass
+class KernelResult:
+    outputs: dict[str, np.ndarray]  # name -> (bands, rows, cols) float32
+    counts: dict[str, int]
+    valid_cells: int
+    nodata_cells: int
+
+
+class CellBoundsError(PhysicalBoundsError):
+    """A bounds violation under ``strict``, with the block-local cell of the first offender."""
+
+    def __init__(self, message: str, row: int, col: int):
+        super().__init__(message)
+        self.row = row
+        self.col = col
+
+
+def output_band_count(name: str, config: KernelConfig) -> int:
+    info = OUTPUTS[name]
+    if info.per_depth:
+        return len(config.depths_m)
+    if info.per_threshold:
+        return len(config.extras.get("threshold_values", ()))
+    if info.per_year:
+        return int(config.extras.get("n_years", 1))
+    return 1
+
+
+def _first_cell(mask: np.ndarray, valid_index: np.ndarray, shape: tuple[int, int]) -> tuple:
+    flat = valid_index[np.argmax(mask)]
+    return tuple(int(v) for v in np.unravel_index(flat, shape))
+
+
+def apply_bounds(
+    cells: dict[str, np.ndarray],
+    strict: bool,
+    valid_index: np.ndarray,
+    shape: tuple[int, int],
+) -> tuple[dict[str, np.ndarray], dict[str, int], np.ndarray]:
+    """Check inputs against physical bounds; clip, rescale or mask as documented.
+
+    Returns the corrected cells, the counters, and a keep-mask (False = masked cell).
+    Under ``strict`` the first violation raises with its block-local cell.
+    """
+    counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
+    out = dict(cells)
+
+    def violation(name: str, mask: np.ndarray, what: str) -> None:
+        n = int(np.count_nonzero(mask))
+        counts[name] += n
+        if strict and n:
+            r, c = _first_cell(mask, valid_index, shape)
+            raise CellBoundsError(f"{what} (first at {{where}}); fix the input or set "
+                                  "strict: false to clip and count", r, c)
+
+    for key in ("sand", "clay", "water_content", "organic_matter", "quartz"):
+        if key in out:
+            neg = out[key] < 0
+            violation("negative_values_clipped", neg, f"negative {key}")
+            out[key] = np.where(neg, 0.0, out[key])
+    for key in ("sand", "clay", "organic_matter", "quartz"):
+        if key in out:
+            big = out[key] > 1
+            violation("fraction_above_1_clipped", big, f"{key} above 100 %")
+            out[key] = np.where(big, 1.0, out[key])
+    total = out["sand"] + out["clay"]
+    over = total > 1.0
+    violation("texture_sum_above_100_percent_rescaled", over, "sand + clay above 100 %")
+    scale = np.where(over, 1.0 / np.where(over, total, 1.0), 1.0)
+    out["sand"] = out["sand"] * scale
+    out["clay"] = out["clay"] * scale
+
+    rho_s = properties.particle_density(out["organic_matter"])
+    too_dense = out["bulk_density"] >= rho_s
+    violation("bulk_density_above_particle_density_masked", too_dense,
+              "bulk density at or above particle density")
+    keep = ~too_dense
+    # masked cells get a harmless density so the property models see valid numbers
+    out["bulk_density"] = np.where(keep, out["bulk_density"], 0.5 * rho_s)
+    phi = properties.porosity(out["bulk_density"], rho_s)
+    wet = out["water_content"] > phi
+    violation("water_above_porosity_clipped", wet & keep, "water content above porosity")
+    out["water_content"] = np.where(wet, phi, out["water_content"])
+    return out, counts, keep
+
+
+def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> KernelResult:
+    """Compute every requested output for one block.
+
+    Parameters
+    ----------
+    inputs
+        Aligned inputs in canonical units, each (bands, rows, cols) float32 with NaN for
+        nodata: ``surface_temperature`` (12 or 12 x years bands) [degC], ``sand``, ``clay``
+        [1], ``water_content`` (1 or 12 bands) [m3 m-3], ``bulk_density`` [kg m-3],
+        ``organic_matter`` [1], optional ``quartz`` [1].
+    config
+        Depths, harmonics, conductivity model, outputs, bounds policy.
+    """
+    t_surf = inputs["surface_temperature"]
+    shape = t_surf.shape[1:]
+    n_months = t_surf.shape[0]
+    monthly = t_surf.reshape(n_months // 12, 12, *shape).mean(axis=0)
+    water = inputs["water_content"]
+    water = water.mean(axis=0) if water.shape[0] > 1 else water[0]
+    fields = {
+        "sand": inputs["sand"][0],
+        "clay": inputs["clay"][0],
+        "water_content": water,
+        "bulk_density": inputs["bulk_density"][0],
+        "organic_matter": inputs["organic_matter"][0],
+    }
+    if "quartz" in inputs:
+        fields["quartz"] = inputs["quartz"][0]
+
+    valid = np.all(np.isfinite(monthly), axis=0)
+    for v in fields.values():
+        valid &= np.isfinite(v)
+    valid_index = np.flatnonzero(valid)
+    n_valid = valid_index.size
+
+    outputs = {
+        name: np.full((output_band_count(name, config), *shape), np.nan, dtype=np.float32)
+        for name in config.outputs
+    }
+    counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
+    if n_valid == 0:
+        return KernelResult(outputs, counts, 0, int(valid.size))
+
+    cells = {k: v.reshape(-1)[valid_index].astype(np.float64) for k, v in fields.items()}
+    cells, counts, keep = apply_bounds(cells, config.strict, valid_index, shape)
+    monthly_cells = monthly.reshape(12, -1)[:, valid_index].astype(np.float64)
+
+    props = properties.soil_thermal_properties(
+        cells["sand"], cells["clay"], cells["water_content"], cells["bulk_density"],
+        cells["organic_matter"], cells.get("quartz"), model=config.conductivity_model,
+    )
+    fit = harmonics.fit_harmonics(monthly_cells, config.harmonics)
+    d1 = periodic.damping_depth(props["diffusivity_m2_s"])
+    d1 = np.where(keep, d1, np.nan)
+    a1 = harmonics.amplitude(fit)[0]
+
+    values: dict[str, np.ndarray] = {}
+    wanted = set(config.outputs)
+    if wanted & {"t_mean", "t_min", "t_max", "amplitude", "phase_lag", "doy_min", "doy_max"}:
+        stats = periodic.depth_statistics(fit, d1, np.asarray(config.depths_m))
+        values.update({k: stats[k] for k in stats if k in wanted})
+    per_cell = {
+        "damping_depth": lambda: d1,
+        "conductivity": lambda: props["conductivity_w_mk"],
+        "heat_capacity": lambda: props["heat_capacity_j_m3k"],
+        "diffusivity": lambda: props["diffusivity_m2_s"],
+        "zero_amplitude_depth": lambda: periodic.zero_amplitude_depth(
+            a1, d1, config.zero_amplitude_tolerance_K),
+        "surface_heat_flux_amplitude": lambda: periodic.surface_heat_flux_amplitude(
+            a1, props["conductivity_w_mk"], props["heat_capacity_j_m3k"]),
+        "frost_depth": lambda: periodic.frost_depth_conduction(fit, d1),
+    }
+    for name, fn in per_cell.items():
+        if name in wanted:
+            values[name] = fn()
+
+    for name, arr in values.items():
+        arr = np.asarray(arr, dtype=np.float64)
+        arr = np.where(keep, arr, np.nan)  # masked cells are nodata in every output
+        target = outputs[name].reshape(outputs[name].shape[0], -1)
+        target[:, valid_index] = arr.reshape(target.shape[0], -1).astype(np.float32)
+    n_masked = int(np.count_nonzero(~keep))
+    return KernelResult(outputs, counts, n_valid - n_masked, int(valid.size) - n_valid + n_masked)

@@ -1,0 +1,562 @@
+"""Orchestration: plan a run from a recipe, build one dask graph, write outputs and a record.
+
+One task per block of the target grid reads every input window once, computes every
+output with the kernel and writes one block file; a second stage assembles each output
+into a Cloud-Optimized GeoTIFF. Memory is bounded by chunk size x workers, never by the
+grid size. The same task functions run on the local threaded scheduler, on a local
+dask.distributed cluster (``workers``) or on an existing one (``scheduler``).
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import os
+import shutil
+import time
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import rasterio
+from rasterio.crs import CRS
+from rasterio.errors import CRSError
+from rasterio.windows import Window
+
+from geothermmap import record
+from geothermmap.checks import check_units
+from geothermmap.errors import InputError, RecipeError, UserError
+from geothermmap.kernel import BOUNDS_COUNTERS, CellBoundsError, KernelConfig, compute_block
+from geothermmap.outputs import FROST_CAUTION, OUTPUTS
+from geothermmap.raster.grid import TargetGrid
+from geothermmap.raster.inputs import (
+    InputLayer,
+    close_cached_handles,
+    configure_gdal,
+    coverage_fraction,
+    grid_of,
+    open_layer,
+)
+from geothermmap.raster.writer import PARTIAL_SUFFIX, BandSpec, block_path, write_block, write_cog
+from geothermmap.recipe import (
+    DEFAULT_BULK_DENSITY_G_CM3,
+    DEFAULT_ORGANIC_MATTER_PERCENT,
+    INPUT_KINDS,
+    UNIT_CONVERSIONS,
+    Recipe,
+    load_recipe,
+)
+
+WORK_DIR_NAME = ".geothermmap-work"
+RECORD_NAME = "run_record.json"
+DEFAULT_CHUNK = 512
+
+#: Expected band counts per input (negative = any multiple of that number).
+EXPECTED_BANDS = {"surface_temperature": (-12,), "water_content": (1, 12)}
+
+
+@dataclass(frozen=True)
+class BlockTask:
+    """Everything a worker needs for one block (picklable)."""
+
+    bi: int
+    bj: int
+    window: tuple[int, int, int, int]  # col_off, row_off, width, height
+    path: str
+
+
+@dataclass(frozen=True)
+class RunContext:
+    """Static, picklable description of a run shared by all block tasks."""
+
+    grid: TargetGrid
+    layers: dict[str, InputLayer]
+    config: KernelConfig
+    band_layout: dict[str, tuple[int, ...]]  # output -> 1-based bands in block files
+    n_block_bands: int
+
+
+@dataclass
+class RunPlan:
+    recipe: Recipe
+    grid: TargetGrid
+    layers: dict[str, InputLayer]
+    config: KernelConfig
+    chunk: int
+    outputs: tuple[str, ...]
+    band_layout: dict[str, tuple[int, ...]]
+    notes: list[str] = field(default_factory=list)
+    coverage: dict[str, float] = field(default_factory=dict)
+
+    @property
+    def context(self) -> RunContext:
+        n = max((b for bands in self.band_layout.values() for b in bands), default=0)
+        return RunContext(self.grid, self.layers, self.config, self.band_layout, n)
+
+    def blocks(self) -> list[tuple[int, int, Window]]:
+        return list(self.grid.blocks(self.chunk))
+
+
+@dataclass
+class RunResult:
+    """What a run wrote and measured."""
+
+    output_dir: Path
+    outputs: dict[str, Path]
+    record_path: Path
+    record: dict[str, Any]
+
+    @property
+    def statistics(self) -> dict[str, Any]:
+        return self.record["outputs"]
+
+    @property
+    def counts(self) -> dict[str, int]:
+        return self.record["counts"]
+
+
+# --------------------------------------------------------------------------- planning
+
+
+def _target_grid(recipe: Recipe, first_temperature_path: Path | None) -> TargetGrid:
+    if recipe.grid is not None:
+        try:
+            crs = CRS.from_user_input(recipe.grid.crs)
+        except CRSError as err:
+            raise RecipeError(f"grid.crs: {recipe.grid.crs!r} is not a CRS ({err})") from None
+        res = recipe.grid.resolution
+        res_xy = (float(res), float(res)) if isinstance(res, int | float) else tuple(res)
+        return TargetGrid.from_bounds(crs, tuple(recipe.grid.bounds), res_xy)
+    if first_temperature_path is None:
+        raise RecipeError("surface_temperature is a constant: give a 'grid' "
+                          "{crs, resolution, bounds} for the output")
+    return grid_of(first_temperature_path, "surface_temperature")
+
+
+def _layer_paths(recipe: Recipe, name: str) -> list[Path] | None:
+    spec = recipe.inputs.get(name)
+    if spec is None or spec.path is None:
+        return None
+    paths = spec.path if isinstance(spec.path, list) else [spec.path]
+    return [recipe.path_of(p) for p in paths]
+
+
+def select_outputs(recipe: Recipe) -> tuple[str, ...]:
+    """Resolve the recipe's ``outputs`` list (``all`` = every output the recipe enables)."""
+    enabled_groups = {"core"}
+    if recipe.freeze_thaw.enabled:
+        enabled_groups.add("freeze_thaw")
+    if recipe.root_zone is not None:
+        enabled_groups.add("root_zone")
+    if recipe.thresholds is not None:
+        enabled_groups.add("thresholds")
+    names: list[str] = []
+    for item in recipe.outputs:
+        if item == "all":
+            names += [n for n, o in OUTPUTS.items() if o.group in enabled_groups]
+        elif item in OUTPUTS:
+            names.append(item)
+        else:
+            import difflib
+
+            close = difflib.get_close_matches(item, list(OUTPUTS), n=1)
+            hint = f" (did you mean '{close[0]}'?)" if close else ""
+            raise RecipeError(f"outputs: unknown output '{item}'{hint}; valid names: all, "
+                              + ", ".join(OUTPUTS))
+    supported = {n for n, o in OUTPUTS.items() if o.group in SUPPORTED_GROUPS}
+    unsupported = [n for n in names if n not in supported]
+    if unsupported:
+        raise RecipeError(f"outputs: {', '.join(unsupported)} need a recipe section that is "
+                          "not enabled or not available in this version")
+    return tuple(dict.fromkeys(names))
+
+
+#: Output groups this version can compute (later features extend this set).
+SUPPORTED_GROUPS = {"core"}
+
+
+def plan_run(recipe: Recipe | str | Path) -> RunPlan:
+    """Validate a recipe and its inputs without computing anything."""
+    if not isinstance(recipe, Recipe):
+        recipe = load_recipe(recipe)
+    configure_gdal()
+    outputs = select_outputs(recipe)
+    t_paths = _layer_paths(recipe, "surface_temperature")
+    grid = _target_grid(recipe, t_paths[0] if t_paths else None)
+
+    layers: dict[str, InputLayer] = {}
+    notes: list[str] = []
+    specs = dict(recipe.inputs)
+    from geothermmap.recipe import InputSpec
+
+    specs.setdefault("bulk_density", InputSpec(value=DEFAULT_BULK_DENSITY_G_CM3,
+                                               units="g cm-3"))
+    specs.setdefault("organic_matter", InputSpec(value=DEFAULT_ORGANIC_MATTER_PERCENT,
+                                                 units="percent"))
+    coverage: dict[str, float] = {}
+    for name, spec in specs.items():
+        if name not in _KERNEL_INPUTS:
+            continue
+        kind, _, default_units = INPUT_KINDS[name]
+        units = spec.units or default_units
+        scale, offset = UNIT_CONVERSIONS[kind][units]
+        layer = open_layer(
+            name, _layer_paths(recipe, name), spec.value, scale, offset, grid,
+            band=spec.band, nodata=spec.nodata, expected_bands=EXPECTED_BANDS.get(name),
+        )
+        where = "constant" if layer.is_constant else ", ".join(s.path for s in layer.sources)
+        notes += check_units(layer, units, where)
+        cov = coverage_fraction(layer, grid)
+        coverage[name] = cov
+        if cov <= 0.0:
+            raise InputError(f"input '{name}' ({where}) does not overlap the output grid "
+                             f"(bounds {tuple(round(b, 3) for b in grid.bounds)} in "
+                             f"{grid.crs.to_string()}); check its CRS and extent")
+        if cov < 0.999:
+            notes.append(f"input '{name}' covers about {cov:.0%} of the output grid; uncovered "
+                         "cells are nodata and counted in the run record")
+        layers[name] = layer
+
+    config = KernelConfig(
+        outputs=outputs,
+        depths_m=tuple(float(d) for d in recipe.depths),
+        harmonics=recipe.harmonics,
+        conductivity_model=recipe.soil.conductivity_model,
+        zero_amplitude_tolerance_K=recipe.zero_amplitude_tolerance,
+        strict=recipe.strict,
+    )
+    from geothermmap.kernel import output_band_count
+
+    layout: dict[str, tuple[int, ...]] = {}
+    nxt = 1
+    for name in outputs:
+        n = output_band_count(name, config)
+        layout[name] = tuple(range(nxt, nxt + n))
+        nxt += n
+    chunk = recipe.chunk or _default_chunk(layers["surface_temperature"])
+    return RunPlan(recipe, grid, layers, config, chunk, outputs, layout, notes, coverage)
+
+
+_KERNEL_INPUTS = ("surface_temperature", "sand", "clay", "water_content", "bulk_density",
+                  "organic_matter", "quartz")
+
+
+def _default_chunk(layer: InputLayer) -> int:
+    """Align to the input tiling when it is square and sensible, else 512."""
+    if layer.is_constant or not layer.sources[0].same_grid:
+        return DEFAULT_CHUNK
+    with rasterio.open(layer.sources[0].path) as ds:
+        by, bx = ds.block_shapes[0]
+    if bx == by and bx % 256 == 0 and 256 <= bx <= 2048:
+        return int(bx)
+    return DEFAULT_CHUNK
+
+
+# --------------------------------------------------------------------------- block task
+
+_GDAL_READY = False
+
+
+def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any]:
+    """Read, compute and write one block; return its partial statistics."""
+    global _GDAL_READY
+    if not _GDAL_READY:  # once per process (cluster workers included)
+        configure_gdal()
+        _GDAL_READY = True
+    stats_path = Path(task.path + ".json")
+    if Path(task.path).exists() and stats_path.exists():  # complete from an earlier attempt
+        return json.loads(stats_path.read_text())
+    window = Window(*task.window)
+    inputs = {name: layer.read(ctx.grid, window) for name, layer in ctx.layers.items()}
+    try:
+        result = compute_block(inputs, ctx.config)
+    except CellBoundsError as err:
+        row = int(window.row_off) + err.row
+        col = int(window.col_off) + err.col
+        x, y = ctx.grid.xy(row, col)
+        raise CellBoundsError(
+            str(err).replace("{where}", f"row {row}, col {col}, x={x:.3f}, y={y:.3f}"), row, col
+        ) from None
+    data = np.empty((ctx.n_block_bands, int(window.height), int(window.width)), np.float32)
+    stats: dict[str, Any] = {"outputs": {}, "counts": result.counts,
+                             "valid_cells": result.valid_cells,
+                             "nodata_cells": result.nodata_cells}
+    for name, bands in ctx.band_layout.items():
+        arr = result.outputs[name]
+        data[[b - 1 for b in bands]] = arr
+        stats["outputs"][name] = [_partial_stats(arr[i]) for i in range(arr.shape[0])]
+    stats_tmp = stats_path.with_name(stats_path.name + f".{os.getpid()}{PARTIAL_SUFFIX}")
+    Path(task.path).parent.mkdir(parents=True, exist_ok=True)
+    stats_tmp.write_text(json.dumps(stats))
+    os.replace(stats_tmp, stats_path)
+    write_block(Path(task.path), data, ctx.grid, window)
+    return stats
+
+
+def _partial_stats(a: np.ndarray) -> list[float]:
+    v = a[np.isfinite(a)].astype(np.float64)
+    if v.size == 0:
+        return [0, 0.0, 0.0, math.inf, -math.inf]
+    return [int(v.size), float(v.sum()), float(np.square(v).sum()), float(v.min()),
+            float(v.max())]
+
+
+def _combine(parts: list[dict[str, Any]], outputs: tuple[str, ...]) -> tuple[dict, dict]:
+    totals: dict[str, list[list[float]]] = {}
+    counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
+    counts["valid_cells"] = 0
+    counts["nodata_cells"] = 0
+    for p in parts:
+        counts["valid_cells"] += p["valid_cells"]
+        counts["nodata_cells"] += p["nodata_cells"]
+        for k, v in p["counts"].items():
+            counts[k] = counts.get(k, 0) + v
+        for name in outputs:
+            bands = p["outputs"][name]
+            acc = totals.setdefault(name, [[0, 0.0, 0.0, math.inf, -math.inf] for _ in bands])
+            for a, b in zip(acc, bands, strict=True):
+                a[0] += b[0]
+                a[1] += b[1]
+                a[2] += b[2]
+                a[3] = min(a[3], b[3])
+                a[4] = max(a[4], b[4])
+    summary = {}
+    for name, bands in totals.items():
+        rows = []
+        for n, s, ss, lo, hi in bands:
+            n = int(n)
+            mean = s / n if n else None
+            std = math.sqrt(max(ss / n - mean * mean, 0.0)) if n else None
+            rows.append({"count": n, "mean": mean, "std": std,
+                         "min": lo if n else None, "max": hi if n else None})
+        summary[name] = rows
+    return summary, counts
+
+
+# --------------------------------------------------------------------------- engines
+
+
+def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
+             scheduler: str | None, progress: Callable[[int], None] | None) -> list[dict]:
+    """Run block tasks on the chosen dask engine; results in task order."""
+    import dask
+
+    if scheduler is None and workers is None:
+        from dask.callbacks import Callback
+
+        delayed = [dask.delayed(run_block, pure=False)(ctx, t) for t in tasks]
+
+        class _Tick(Callback):
+            def _posttask(self, key, result, dsk, state, id):  # noqa: A002
+                if progress is not None and isinstance(result, dict) and "outputs" in result:
+                    progress(1)
+
+        with _Tick():
+            return list(dask.compute(*delayed, scheduler="threads",
+                                     num_workers=os.cpu_count() or 1))
+    from distributed import Client, LocalCluster, as_completed
+
+    cluster = None
+    try:
+        if scheduler is not None:
+            client = Client(scheduler, timeout="10s")
+        else:
+            cluster = LocalCluster(n_workers=int(workers or 1), threads_per_worker=1,
+                                   processes=True, host="127.0.0.1", dashboard_address=None)
+            client = Client(cluster)
+    except OSError as err:
+        raise UserError(f"cannot reach the dask scheduler {scheduler!r}: {err}") from None
+    try:
+        futures = client.map(run_block, [ctx] * len(tasks), tasks, pure=False)
+        index = {f.key: i for i, f in enumerate(futures)}
+        results: list[dict | None] = [None] * len(tasks)
+        for fut in as_completed(futures):
+            results[index[fut.key]] = fut.result()
+            if progress is not None:
+                progress(1)
+        return results  # type: ignore[return-value]
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+# --------------------------------------------------------------------------- the run
+
+
+def _check_output_dir(out: Path, overwrite: bool) -> dict | None:
+    """Refuse folders that hold files geothermmap did not write (unless ``overwrite``)."""
+    previous = record.read(out / RECORD_NAME)
+    if not out.exists():
+        return None
+    if not out.is_dir():
+        raise UserError(f"output path {out} exists and is not a folder")
+    ours = {RECORD_NAME, WORK_DIR_NAME}
+    if previous:
+        ours |= set(previous.get("files", []))
+    foreign = sorted(p.name for p in out.iterdir()
+                     if p.name not in ours and not p.name.endswith(PARTIAL_SUFFIX + ".tif"))
+    if foreign and not overwrite:
+        shown = ", ".join(foreign[:5]) + (" ..." if len(foreign) > 5 else "")
+        raise UserError(f"output folder {out} holds files geothermmap did not write ({shown}); "
+                        "choose another folder with -o, or pass --overwrite")
+    return previous
+
+
+def run_recipe(
+    recipe: Recipe | str | Path,
+    output_dir: str | Path,
+    *,
+    workers: int | None = None,
+    scheduler: str | None = None,
+    resume: bool = False,
+    overwrite: bool = False,
+    progress: Callable[[str, int, int], None] | None = None,
+) -> RunResult:
+    """Run a recipe: compute every requested output and write COGs plus a run record.
+
+    Parameters
+    ----------
+    recipe
+        A :class:`Recipe` or the path of a YAML recipe.
+    output_dir
+        Folder for the outputs (created if needed).
+    workers
+        Start a local dask.distributed cluster with this many worker processes.
+    scheduler
+        Address of an existing dask.distributed scheduler (``tcp://host:port``).
+    resume
+        Keep outputs and blocks already complete for the same recipe and inputs.
+    overwrite
+        Allow writing into a folder that holds files geothermmap did not write.
+    progress
+        Callback ``(stage, done, total)`` for progress reporting.
+    """
+    t0 = time.perf_counter()
+    plan = plan_run(recipe)
+    out = Path(output_dir).resolve()
+    previous = _check_output_dir(out, overwrite)
+    out.mkdir(parents=True, exist_ok=True)
+    _remove_partials(out)
+
+    t_hash = time.perf_counter()
+    checksums = record.input_checksums(plan)
+    run_key = record.run_key(plan, checksums)
+    timings = {"plan_s": t_hash - t0, "checksums_s": time.perf_counter() - t_hash}
+
+    done: dict[str, dict] = {}
+    if resume and previous and previous.get("run_key_base") == run_key["base"]:
+        for name, entry in previous.get("outputs", {}).items():
+            if name in plan.outputs and (out / entry["file"]).exists():
+                done[name] = entry
+    elif previous:  # a fresh run replaces the earlier run's outputs
+        for fname in previous.get("files", []):
+            (out / fname).unlink(missing_ok=True)
+
+    work = out / WORK_DIR_NAME / run_key["full"]
+    if not resume and (out / WORK_DIR_NAME).exists():
+        shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
+    ctx = plan.context
+    blocks = plan.blocks()
+    tasks = [BlockTask(bi, bj, (int(w.col_off), int(w.row_off), int(w.width), int(w.height)),
+                       str(block_path(work, bi, bj))) for bi, bj, w in blocks]
+
+    rec = record.new_record(plan, out, checksums, run_key, timings)
+    rec["outputs"] = dict(done)
+    rec["files"] = sorted({e["file"] for e in done.values()})
+    record.write(out / RECORD_NAME, rec)
+
+    todo = [n for n in plan.outputs if n not in done]
+    try:
+        if todo:
+            t1 = time.perf_counter()
+            counter = [0]
+
+            def tick(n: int) -> None:
+                counter[0] += n
+                if progress:
+                    progress("blocks", counter[0], len(tasks))
+
+            if progress:
+                progress("blocks", 0, len(tasks))
+            parts = _execute(tasks, ctx, workers=workers, scheduler=scheduler, progress=tick)
+            timings["compute_s"] = time.perf_counter() - t1
+            summary, counts = _combine(parts, plan.outputs)
+            rec["counts"] = counts
+            rec["counts"]["uncovered_input_fraction"] = {
+                k: round(1.0 - v, 6) for k, v in plan.coverage.items() if v < 0.999}
+            t2 = time.perf_counter()
+            block_files = [(w, block_path(work, bi, bj)) for bi, bj, w in blocks]
+            for i, name in enumerate(todo):
+                if progress:
+                    progress("maps", i, len(todo))
+                path = _write_output(plan, name, out, work, block_files)
+                rec["outputs"][name] = record.output_entry(plan, name, path, summary[name])
+                rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
+                record.write(out / RECORD_NAME, rec)  # lists only complete outputs
+            if progress:
+                progress("maps", len(todo), len(todo))
+            timings["write_s"] = time.perf_counter() - t2
+        timings["total_s"] = time.perf_counter() - t0
+        rec["timings"] = timings
+        rec["status"] = "complete"
+        record.write(out / RECORD_NAME, rec)
+    except BaseException:
+        _remove_partials(out)
+        raise
+    finally:
+        close_cached_handles()
+    shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
+    paths = {n: out / OUTPUTS[n].filename for n in plan.outputs}
+    return RunResult(out, paths, out / RECORD_NAME, rec)
+
+
+def _remove_partials(out: Path) -> None:
+    if out.exists():
+        for p in out.glob(f".*{PARTIAL_SUFFIX}.tif"):
+            p.unlink(missing_ok=True)
+
+
+def band_descriptions(plan: RunPlan, name: str) -> list[tuple[str, dict[str, str]]]:
+    info = OUTPUTS[name]
+    if info.per_depth:
+        return [(f"depth {d:g} m", {"depth_m": f"{d:g}"}) for d in plan.config.depths_m]
+    if info.per_threshold:
+        vals = plan.config.extras.get("threshold_values", ())
+        return [(f"threshold {v:g} degC", {"threshold_degC": f"{v:g}"}) for v in vals]
+    if info.per_year:
+        n = int(plan.config.extras.get("n_years", 1))
+        return [(f"winter {i + 1}", {"winter": str(i + 1)}) for i in range(n)]
+    return [(info.description.split(".")[0][:80], {})]
+
+
+def output_tags(plan: RunPlan, name: str) -> dict[str, str]:
+    info = OUTPUTS[name]
+    tags = {
+        "units": info.units,
+        "description": info.description,
+        "long_name": name,
+        "software": f"geothermmap {record.package_version()}",
+        "recipe": plan.recipe.name,
+        "conductivity_model": plan.config.conductivity_model,
+        "harmonics": str(plan.config.harmonics),
+    }
+    if info.per_depth:
+        tags["depths_m"] = ",".join(f"{d:g}" for d in plan.config.depths_m)
+    if info.frost:
+        tags["caution"] = FROST_CAUTION
+    tags.update(plan.config.extras.get("tags", {}).get(name, {}))
+    return tags
+
+
+def _write_output(plan: RunPlan, name: str, out: Path, work: Path, block_files) -> Path:
+    info = OUTPUTS[name]
+    bands = [BandSpec(b, desc, tags)
+             for b, (desc, tags) in zip(plan.band_layout[name], band_descriptions(plan, name),
+                                        strict=True)]
+    nodata = 0 if info.dtype == "uint8" else float("nan")
+    return write_cog(out / info.filename, work, plan.grid, block_files, bands, dtype=info.dtype,
+                     nodata=nodata, units=info.units, tags=output_tags(plan, name),
+                     compression=plan.recipe.compression)

@@ -1,0 +1,1 @@
+"""Raster I/O and alignment (rasterio): the layer between physics and orchestration."""

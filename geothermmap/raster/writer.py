@@ -1,0 +1,165 @@
+"""Output writing: per-block intermediate files, then one Cloud-Optimized GeoTIFF per output.
+
+Why this shape: the GDAL COG driver can only copy, not write windows, so a COG cannot be
+streamed from dask directly. Each dask task therefore writes its block (all output bands)
+to its own small GeoTIFF under the run's work folder: no two tasks ever write to the same
+file, so threads and processes on a cluster need no lock. A block file is written under a
+temporary name and renamed when complete, so a resumed run can trust any block file it
+finds. When all blocks exist, a VRT mosaic per output (which also carries units, band
+descriptions and tags) is copied once into a COG with GDAL's multi-threaded compression,
+again under a temporary name that is renamed into place only when complete.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from xml.sax.saxutils import escape
+
+import numpy as np
+import rasterio
+import rasterio.shutil
+from rasterio.windows import Window
+
+from geothermmap.raster.grid import TargetGrid
+
+COMPRESSION_OPTIONS = {
+    "deflate": {"COMPRESS": "DEFLATE", "PREDICTOR": "YES", "LEVEL": "6"},
+    "zstd": {"COMPRESS": "ZSTD", "PREDICTOR": "YES", "LEVEL": "1"},
+    "lzw": {"COMPRESS": "LZW", "PREDICTOR": "YES"},
+}
+COG_BLOCKSIZE = 512
+PARTIAL_SUFFIX = ".partial"
+
+
+def block_path(work_dir: Path, bi: int, bj: int) -> Path:
+    return work_dir / "blocks" / f"b{bi:05d}_{bj:05d}.tif"
+
+
+def write_block(path: Path, data: np.ndarray, grid: TargetGrid, window: Window) -> None:
+    """Write one block (bands, rows, cols) float32, atomically (temporary name, then rename)."""
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(path.name + f".{os.getpid()}.{id(data)}{PARTIAL_SUFFIX}")
+    profile = {
+        "driver": "GTiff",
+        "width": int(window.width),
+        "height": int(window.height),
+        "count": int(data.shape[0]),
+        "dtype": "float32",
+        "crs": grid.crs,
+        "transform": grid.window_transform(window),
+        "nodata": float("nan"),
+        "interleave": "band",
+        "BIGTIFF": "IF_SAFER",
+    }
+    with rasterio.open(tmp, "w", **profile) as dst:
+        dst.write(data.astype(np.float32, copy=False))
+    os.replace(tmp, path)
+
+
+@dataclass(frozen=True)
+class BandSpec:
+    """One output band: its band number in the block files, description and tags."""
+
+    block_band: int  # 1-based band in each block file
+    description: str
+    tags: dict[str, str]
+
+
+def _vrt_xml(
+    grid: TargetGrid,
+    blocks: Sequence[tuple[Window, Path]],
+    bands: Sequence[BandSpec],
+    *,
+    dtype: str,
+    nodata: float,
+    units: str,
+    tags: dict[str, str],
+) -> str:
+    a, b, c, d, e, f = grid.transform
+    gdal_type = {"float32": "Float32", "uint8": "Byte"}[dtype]
+    nodata_txt = "nan" if isinstance(nodata, float) and math.isnan(nodata) else repr(nodata)
+
+    def mdi(items: dict[str, str]) -> str:
+        inner = "".join(f'<MDI key="{escape(k)}">{escape(str(v))}</MDI>' for k, v in items.items())
+        return f"<Metadata>{inner}</Metadata>"
+
+    out = [
+        f'<VRTDataset rasterXSize="{grid.width}" rasterYSize="{grid.height}">',
+        f"<SRS>{escape(grid.crs_wkt)}</SRS>",
+        f"<GeoTransform>{c!r}, {a!r}, {b!r}, {f!r}, {d!r}, {e!r}</GeoTransform>",
+        mdi(tags),
+    ]
+    for i, band in enumerate(bands, start=1):
+        out.append(f'<VRTRasterBand dataType="{gdal_type}" band="{i}">')
+        out.append(f"<Description>{escape(band.description)}</Description>")
+        out.append(f"<NoDataValue>{nodata_txt}</NoDataValue>")
+        out.append(f"<UnitType>{escape(units)}</UnitType>")
+        out.append(mdi(band.tags))
+        for window, path in blocks:
+            w, h = int(window.width), int(window.height)
+            out.append(
+                "<SimpleSource>"
+                f'<SourceFilename relativeToVRT="0">{escape(str(path))}</SourceFilename>'
+                f"<SourceBand>{band.block_band}</SourceBand>"
+                f'<SourceProperties RasterXSize="{w}" RasterYSize="{h}" DataType="Float32" '
+                f'BlockXSize="{w}" BlockYSize="1"/>'
+                f'<SrcRect xOff="0" yOff="0" xSize="{w}" ySize="{h}"/>'
+                f'<DstRect xOff="{int(window.col_off)}" yOff="{int(window.row_off)}" '
+                f'xSize="{w}" ySize="{h}"/>'
+                "</SimpleSource>"
+            )
+        out.append("</VRTRasterBand>")
+    out.append("</VRTDataset>")
+    return "\n".join(out)
+
+
+def overview_count(width: int, height: int, smallest: int = 256) -> int:
+    """Overview levels so the coarsest is under ``smallest`` pixels a side (at least one)."""
+    side = max(width, height)
+    return max(1, math.ceil(math.log2(max(side / smallest, 1.0))))
+
+
+def write_cog(
+    out_path: Path,
+    work_dir: Path,
+    grid: TargetGrid,
+    blocks: Sequence[tuple[Window, Path]],
+    bands: Sequence[BandSpec],
+    *,
+    dtype: str = "float32",
+    nodata: float = float("nan"),
+    units: str = "",
+    tags: dict[str, str] | None = None,
+    compression: str = "deflate",
+    num_threads: int | str = "ALL_CPUS",
+) -> Path:
+    """Assemble block files into one COG at ``out_path`` (atomic: temp name, then rename)."""
+    vrt_path = work_dir / f"{out_path.stem}.vrt"
+    vrt_path.write_text(
+        _vrt_xml(grid, blocks, bands, dtype=dtype, nodata=nodata, units=units, tags=tags or {}),
+        encoding="utf-8",
+    )
+    tmp = out_path.with_name(f".{out_path.stem}{PARTIAL_SUFFIX}.tif")
+    options = dict(COMPRESSION_OPTIONS[compression])
+    if dtype == "uint8":
+        options["PREDICTOR"] = "NO"
+    resampling = "NEAREST" if dtype == "uint8" else "AVERAGE"
+    with rasterio.Env(GDAL_NUM_THREADS=str(num_threads), GDAL_CACHEMAX=256):
+        rasterio.shutil.copy(
+            str(vrt_path),
+            str(tmp),
+            driver="COG",
+            BLOCKSIZE=str(COG_BLOCKSIZE),
+            OVERVIEW_COUNT=str(overview_count(grid.width, grid.height)),
+            RESAMPLING=resampling,
+            NUM_THREADS=str(num_threads),
+            BIGTIFF="IF_SAFER",
+            **options,
+        )
+    os.replace(tmp, out_path)
+    vrt_path.unlink(missing_ok=True)
+    return out_path
