@@ -60,7 +60,7 @@ class TargetGrid:
         return self.width * self.height
 
     def window_transform(self, window: Window) -> Affine:
-        return self.affine * Affine.translation(window.col_off, window.row_off)
+        return self.affine @ Affine.translation(window.col_off, window.row_off)
 
     def blocks(self, chunk: int) -> Iterator[tuple[int, int, Window]]:
         """Row-major blocks of ``chunk`` x ``chunk`` pixels (smaller at the right/bottom)."""
@@ -71,7 +71,7 @@ class TargetGrid:
 
     def xy(self, row: int, col: int) -> tuple[float, float]:
         """Map coordinates of a cell centre."""
-        x, y = self.affine * (col + 0.5, row + 0.5)
+        x, y = self.affine @ (col + 0.5, row + 0.5)
         return float(x), float(y)
 
     def describe(self) -> dict:

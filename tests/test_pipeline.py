@@ -1,0 +1,167 @@
+"""End-to-end checks of the pipeline on small synthetic rasters.
+
+The reference for "point equals map cell" is an independent computation: the physics
+functions called on the inputs of that one cell, read directly from the files (same-grid
+case) or reprojected whole with ``rasterio.warp.reproject`` (multi-CRS case).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pytest
+import rasterio
+from rasterio.enums import Resampling
+from rasterio.warp import reproject
+
+from geothermmap import run_recipe
+from geothermmap.outputs import OUTPUTS
+from geothermmap.physics import harmonics, periodic, properties
+from tests.conftest import make_case, write_recipe
+
+CORE = [n for n, o in OUTPUTS.items() if o.group == "core"]
+
+
+def _read(path: Path) -> np.ndarray:
+    with rasterio.open(path) as src:
+        return src.read().astype(np.float64)
+
+
+def _point(t12, sand, clay, water, bd=1450.0, om=0.02, depths=(0.1, 0.5, 1.0, 2.0), h=2):
+    props = properties.soil_thermal_properties(
+        np.array([sand]), np.array([clay]), np.array([water]), np.array([bd]), np.array([om]))
+    fit = harmonics.fit_harmonics(np.asarray(t12, dtype=np.float64).reshape(12, 1), h)
+    d = periodic.damping_depth(props["diffusivity_m2_s"])
+    stats = periodic.depth_statistics(fit, d, np.asarray(depths))
+    return props, d, stats
+
+
+def test_outputs_are_cogs_on_the_target_grid(same_grid_case, tmp_path):
+    recipe, files = same_grid_case
+    result = run_recipe(recipe, tmp_path / "out")
+    with rasterio.open(files["surface_temperature"]) as t:
+        crs, transform, shape = t.crs, t.transform, t.shape
+    assert set(result.outputs) == set(CORE)
+    for name, path in result.outputs.items():
+        assert path.name == f"{name}.tif"
+        with rasterio.open(path) as src:
+            assert src.crs == crs and src.transform == transform and src.shape == shape
+            assert src.dtypes[0] == "float32"
+            assert src.tags(ns="IMAGE_STRUCTURE").get("LAYOUT") == "COG"
+            assert src.compression is not None
+            assert src.overviews(1), "COG must carry overviews"
+            assert src.nodata is not None and np.isnan(src.nodata)
+            tags = src.tags()
+            assert tags["units"] == OUTPUTS[name].units and tags["description"]
+            if OUTPUTS[name].per_depth:
+                assert src.count == 4
+                assert [d for d in src.descriptions] == [
+                    "depth 0.1 m", "depth 0.5 m", "depth 1 m", "depth 2 m"]
+            else:
+                assert src.count == 1
+            if OUTPUTS[name].frost:
+                assert "licensed" in tags["caution"]
+    leftovers = [p for p in (tmp_path / "out").rglob("*") if "partial" in p.name]
+    assert not leftovers
+    assert not (tmp_path / "out" / ".geothermmap-work").exists()
+
+
+def test_point_equals_map_cell_same_grid(same_grid_case, tmp_path):
+    recipe, files = same_grid_case
+    result = run_recipe(recipe, tmp_path / "out")
+    t = _read(files["surface_temperature"])
+    sand = _read(files["sand"])[0] / 100
+    clay = _read(files["clay"])[0] / 100
+    water = _read(files["water_content"])[0]
+    maps = {n: _read(p) for n, p in result.outputs.items()}
+    for r, c in [(0, 0), (5, 60), (33, 17), (69, 89), (40, 45)]:
+        props, d, stats = _point(t[:, r, c], sand[r, c], clay[r, c], water[r, c])
+        # float32 storage: relative 1e-6
+        np.testing.assert_allclose(maps["conductivity"][0, r, c], props["conductivity_w_mk"][0],
+                                   rtol=1e-6)
+        np.testing.assert_allclose(maps["damping_depth"][0, r, c], d[0], rtol=1e-6)
+        for key in ("t_min", "t_max", "amplitude", "phase_lag", "t_mean"):
+            np.testing.assert_allclose(maps[key][:, r, c], stats[key][:, 0], rtol=1e-5,
+                                       atol=1e-5)
+
+
+def test_nodata_propagates_to_every_output(same_grid_case, tmp_path):
+    recipe, _ = same_grid_case
+    result = run_recipe(recipe, tmp_path / "out")
+    for path in result.outputs.values():
+        data = _read(path)
+        assert np.isnan(data[:, 10:14, 20:25]).all()
+        assert np.isfinite(data[:, 30:40, 30:40]).all()
+    assert result.counts["nodata_cells"] == 4 * 5
+
+
+def test_chunked_equals_unchunked(tmp_path):
+    files = make_case(tmp_path)
+    a = run_recipe(write_recipe(tmp_path, files, chunk=64), tmp_path / "a")
+    b = run_recipe(write_recipe(tmp_path, files, chunk=512), tmp_path / "b")
+    for name in a.outputs:
+        np.testing.assert_array_equal(_read(a.outputs[name]), _read(b.outputs[name]))
+
+
+def test_multi_crs_inputs_are_aligned_to_the_temperature_grid(multi_crs_case, tmp_path):
+    recipe, files = multi_crs_case
+    result = run_recipe(recipe, tmp_path / "out")
+    with rasterio.open(files["surface_temperature"]) as t:
+        grid = (t.crs, t.transform, t.shape)
+        t_data = t.read().astype(np.float64)
+    aligned = {}
+    for name in ("sand", "clay", "water_content"):
+        with rasterio.open(files[name]) as src:
+            dst = np.full(grid[2], np.nan, dtype=np.float32)
+            # independent whole-raster reprojection with the same resampling
+            reproject(rasterio.band(src, 1), dst, dst_transform=grid[1], dst_crs=grid[0],
+                      resampling=Resampling.bilinear, dst_nodata=np.nan)
+            aligned[name] = dst.astype(np.float64)
+    cond = _read(result.outputs["conductivity"])[0]
+    for name, path in result.outputs.items():
+        with rasterio.open(path) as src:
+            assert (src.crs, src.transform, src.shape) == grid
+    for r, c in [(3, 3), (35, 50), (60, 80)]:
+        props, _, _ = _point(t_data[:, r, c], aligned["sand"][r, c] / 100,
+                             aligned["clay"][r, c] / 100, aligned["water_content"][r, c])
+        # GDAL's warper and reproject() share the kernel but not the approximate transformer
+        # grid (0.125 px error budget): on these linear ramps that is < 0.5 % in conductivity
+        np.testing.assert_allclose(cond[r, c], props["conductivity_w_mk"][0], rtol=5e-3)
+
+
+def test_explicit_grid_is_honoured(tmp_path):
+    files = make_case(tmp_path)
+    grid = {"crs": "EPSG:32633", "resolution": 200, "bounds": [501000, 5194000, 508000, 5199000]}
+    result = run_recipe(write_recipe(tmp_path, files, grid=grid), tmp_path / "out")
+    with rasterio.open(result.outputs["t_mean"]) as src:
+        assert src.shape == (25, 35)
+        assert src.transform.a == 200 and src.transform.e == -200
+        assert (src.transform.c, src.transform.f) == (501000, 5199000)
+
+
+def test_run_record(same_grid_case, tmp_path):
+    recipe, files = same_grid_case
+    result = run_recipe(recipe, tmp_path / "out")
+    rec = json.loads((tmp_path / "out" / "run_record.json").read_text())
+    assert rec["status"] == "complete"
+    assert rec["recipe"]["harmonics"] == 2 and rec["recipe"]["depths"] == [0.1, 0.5, 1.0, 2.0]
+    assert rec["versions"]["rasterio"] and rec["versions"]["gdal"]
+    sha = rec["inputs"]["surface_temperature"]["files"][0]["sha256"]
+    assert len(sha) == 64
+    stats = rec["outputs"]["t_mean"]["bands"][0]
+    data = _read(result.outputs["t_mean"])[0]
+    assert stats["count"] == np.isfinite(data).sum()
+    np.testing.assert_allclose(stats["mean"], np.nanmean(data), rtol=1e-6)
+    assert "compute_s" in rec["timings"]
+    assert set(rec["files"]) == {f"{n}.tif" for n in CORE}
+
+
+@pytest.mark.slow
+def test_threaded_equals_local_cluster(same_grid_case, tmp_path):
+    recipe, _ = same_grid_case
+    a = run_recipe(recipe, tmp_path / "threads")
+    b = run_recipe(recipe, tmp_path / "cluster", workers=2)
+    for name in a.outputs:
+        np.testing.assert_array_equal(_read(a.outputs[name]), _read(b.outputs[name]))
