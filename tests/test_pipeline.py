@@ -120,7 +120,7 @@ def test_multi_crs_inputs_are_aligned_to_the_temperature_grid(multi_crs_case, tm
                       resampling=Resampling.bilinear, dst_nodata=np.nan)
             aligned[name] = dst.astype(np.float64)
     cond = _read(result.outputs["conductivity"])[0]
-    for name, path in result.outputs.items():
+    for path in result.outputs.values():
         with rasterio.open(path) as src:
             assert (src.crs, src.transform, src.shape) == grid
     for r, c in [(3, 3), (35, 50), (60, 80)]:
