@@ -10,6 +10,7 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+from rasterio.errors import RasterioError
 
 from geothermmap.errors import InputError
 from geothermmap.raster.inputs import InputLayer, sample_values
@@ -24,7 +25,11 @@ def check_units(layer: InputLayer, declared_units: str, where: str) -> list[str]
     """Raise InputError if sampled values contradict the declared units; return warnings."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", RuntimeWarning)
-        v = _finite(sample_values(layer))
+        try:
+            v = _finite(sample_values(layer))
+        except RasterioError as err:
+            raise InputError(f"input '{layer.name}' ({where}): cannot read the raster ({err}); "
+                             "the file may be truncated or corrupt") from None
     notes: list[str] = []
     if v.size == 0:
         raise InputError(f"input '{layer.name}' ({where}): no valid values (all nodata)")

@@ -58,13 +58,28 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--debug", is_flag=True, help="Show full tracebacks.")
 @click.version_option(package_name="geothermmap")
-def main(debug: bool) -> None:
+def main(debug: bool) -> None:  # noqa: D401
     """geothermmap: ground-temperature and frost maps at depth from surface climatologies
     and soil rasters.
 
     Frost and foundation outputs are screening estimates: design burial and foundation
     depths follow local codes and licensed engineers.
     """
+    _stop_on_sigterm()
+
+
+def _stop_on_sigterm() -> None:
+    """Treat SIGTERM like Ctrl-C so that a stopped run cleans up the same way."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return
+
+    def _raise(signum: int, frame: object) -> None:
+        raise KeyboardInterrupt
+
+    signal.signal(signal.SIGTERM, _raise)
 
 
 class _Progress:

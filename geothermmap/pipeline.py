@@ -13,6 +13,7 @@ import json
 import math
 import os
 import shutil
+import threading
 import time
 from collections.abc import Callable
 from dataclasses import dataclass, field
@@ -22,7 +23,7 @@ from typing import Any
 import numpy as np
 import rasterio
 from rasterio.crs import CRS
-from rasterio.errors import CRSError
+from rasterio.errors import CRSError, RasterioError, RasterioIOError
 from rasterio.windows import Window
 
 from geothermmap import record
@@ -51,6 +52,9 @@ from geothermmap.recipe import (
 
 WORK_DIR_NAME = ".geothermmap-work"
 RECORD_NAME = "run_record.json"
+#: Names in an output folder that belong to the tool besides the maps themselves.
+TOOL_FILES = (RECORD_NAME, WORK_DIR_NAME, "quicklook", "report.html", "summary.gpkg",
+              "summary.csv")
 DEFAULT_CHUNK = 512
 
 #: Expected band counts per input (negative = any multiple of that number).
@@ -257,19 +261,40 @@ def _default_chunk(layer: InputLayer) -> int:
 # --------------------------------------------------------------------------- block task
 
 _GDAL_READY = False
+#: Set when a run is interrupted: block tasks still queued return at once.
+CANCELLED = threading.Event()
 
 
-def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any]:
+def _read_inputs(ctx: RunContext, window: Window) -> dict[str, np.ndarray]:
+    inputs = {}
+    for name, layer in ctx.layers.items():
+        try:
+            inputs[name] = layer.read(ctx.grid, window)
+        except (RasterioIOError, RasterioError) as err:
+            files = ", ".join(s.path for s in layer.sources)
+            raise InputError(f"input '{name}': cannot read {files} at rows "
+                             f"{int(window.row_off)}..{int(window.row_off + window.height)}, "
+                             f"cols {int(window.col_off)}..{int(window.col_off + window.width)}"
+                             f" ({err}); the file may be truncated or corrupt") from None
+    return inputs
+
+
+def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
     """Read, compute and write one block; return its partial statistics."""
     global _GDAL_READY
+    if CANCELLED.is_set():
+        return None
     if not _GDAL_READY:  # once per process (cluster workers included)
         configure_gdal()
         _GDAL_READY = True
     stats_path = Path(task.path + ".json")
     if Path(task.path).exists() and stats_path.exists():  # complete from an earlier attempt
-        return json.loads(stats_path.read_text())
+        try:
+            return {**json.loads(stats_path.read_text()), "reused": True}
+        except ValueError:
+            pass  # unreadable ledger: recompute the block
     window = Window(*task.window)
-    inputs = {name: layer.read(ctx.grid, window) for name, layer in ctx.layers.items()}
+    inputs = _read_inputs(ctx, window)
     try:
         result = compute_block(inputs, ctx.config)
     except CellBoundsError as err:
@@ -308,7 +333,9 @@ def _combine(parts: list[dict[str, Any]], outputs: tuple[str, ...]) -> tuple[dic
     counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
     counts["valid_cells"] = 0
     counts["nodata_cells"] = 0
+    counts["blocks_reused"] = 0
     for p in parts:
+        counts["blocks_reused"] += int(p.get("reused", False))
         counts["valid_cells"] += p["valid_cells"]
         counts["nodata_cells"] += p["nodata_cells"]
         for k, v in p["counts"].items():
@@ -344,6 +371,8 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
     import dask
 
     if scheduler is None and workers is None:
+        from concurrent.futures import ThreadPoolExecutor
+
         from dask.callbacks import Callback
 
         delayed = [dask.delayed(run_block, pure=False)(ctx, t) for t in tasks]
@@ -353,9 +382,18 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
                 if progress is not None and isinstance(result, dict) and "outputs" in result:
                     progress(1)
 
-        with _Tick():
-            return list(dask.compute(*delayed, scheduler="threads",
-                                     num_workers=os.cpu_count() or 1))
+        # our own pool, so that an interrupt can wait for running tasks to finish
+        pool = ThreadPoolExecutor(max_workers=os.cpu_count() or 1,
+                                  thread_name_prefix="geothermmap")
+        try:
+            with _Tick():
+                return list(dask.compute(*delayed, scheduler="threads", pool=pool))
+        except BaseException:
+            CANCELLED.set()
+            raise
+        finally:
+            pool.shutdown(wait=True, cancel_futures=True)
+            CANCELLED.clear()
     from distributed import Client, LocalCluster, as_completed
 
     cluster = None
@@ -368,6 +406,7 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
             client = Client(cluster)
     except OSError as err:
         raise UserError(f"cannot reach the dask scheduler {scheduler!r}: {err}") from None
+    futures: list = []
     try:
         futures = client.map(run_block, [ctx] * len(tasks), tasks, pure=False)
         index = {f.key: i for i, f in enumerate(futures)}
@@ -377,6 +416,9 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
             if progress is not None:
                 progress(1)
         return results  # type: ignore[return-value]
+    except BaseException:
+        client.cancel(futures)
+        raise
     finally:
         client.close()
         if cluster is not None:
@@ -393,11 +435,11 @@ def _check_output_dir(out: Path, overwrite: bool) -> dict | None:
         return None
     if not out.is_dir():
         raise UserError(f"output path {out} exists and is not a folder")
-    ours = {RECORD_NAME, WORK_DIR_NAME}
+    ours = set(TOOL_FILES)
     if previous:
         ours |= set(previous.get("files", []))
     foreign = sorted(p.name for p in out.iterdir()
-                     if p.name not in ours and not p.name.endswith(PARTIAL_SUFFIX + ".tif"))
+                     if p.name not in ours and not _is_partial(p.name))
     if foreign and not overwrite:
         shown = ", ".join(foreign[:5]) + (" ..." if len(foreign) > 5 else "")
         raise UserError(f"output folder {out} holds files geothermmap did not write ({shown}); "
@@ -456,14 +498,18 @@ def run_recipe(
             (out / fname).unlink(missing_ok=True)
 
     work = out / WORK_DIR_NAME / run_key["full"]
-    if not resume and (out / WORK_DIR_NAME).exists():
-        shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
+    if (out / WORK_DIR_NAME).exists():  # blocks of another recipe or input are stale
+        for stale in (out / WORK_DIR_NAME).iterdir():
+            if not resume or stale.name != run_key["full"]:
+                shutil.rmtree(stale, ignore_errors=True)
     ctx = plan.context
     blocks = plan.blocks()
     tasks = [BlockTask(bi, bj, (int(w.col_off), int(w.row_off), int(w.width), int(w.height)),
                        str(block_path(work, bi, bj))) for bi, bj, w in blocks]
 
     rec = record.new_record(plan, out, checksums, run_key, timings)
+    if done and previous:
+        rec["counts"] = previous.get("counts", {})
     rec["outputs"] = dict(done)
     rec["files"] = sorted({e["file"] for e in done.values()})
     record.write(out / RECORD_NAME, rec)
@@ -493,7 +539,9 @@ def run_recipe(
                 if progress:
                     progress("maps", i, len(todo))
                 path = _write_output(plan, name, out, work, block_files)
-                rec["outputs"][name] = record.output_entry(plan, name, path, summary[name])
+                entry = record.output_entry(plan, name, path, summary[name])
+                entry["input_corrections"] = {k: counts.get(k, 0) for k in BOUNDS_COUNTERS}
+                rec["outputs"][name] = entry
                 rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
                 record.write(out / RECORD_NAME, rec)  # lists only complete outputs
             if progress:
@@ -503,8 +551,14 @@ def run_recipe(
         rec["timings"] = timings
         rec["status"] = "complete"
         record.write(out / RECORD_NAME, rec)
-    except BaseException:
+    except KeyboardInterrupt:
+        # an interrupt leaves no temporary files: partial maps and block files go;
+        # maps already complete stay and are listed in the run record
         _remove_partials(out)
+        shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
+        raise
+    except BaseException:
+        _remove_partials(out)  # block files stay: --resume reuses them
         raise
     finally:
         close_cached_handles()
@@ -513,10 +567,16 @@ def run_recipe(
     return RunResult(out, paths, out / RECORD_NAME, rec)
 
 
+def _is_partial(name: str) -> bool:
+    return name.startswith(".") and PARTIAL_SUFFIX in name
+
+
 def _remove_partials(out: Path) -> None:
+    """Remove temporary files of an unfinished write (never under a final name)."""
     if out.exists():
-        for p in out.glob(f".*{PARTIAL_SUFFIX}.tif"):
-            p.unlink(missing_ok=True)
+        for p in out.iterdir():
+            if p.is_file() and _is_partial(p.name):
+                p.unlink(missing_ok=True)
 
 
 def band_descriptions(plan: RunPlan, name: str) -> list[tuple[str, dict[str, str]]]:

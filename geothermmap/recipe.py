@@ -99,6 +99,10 @@ class InputSpec(_Strict):
             raise ValueError("give exactly one of 'path' or 'value'")
         if isinstance(self.path, list) and not self.path:
             raise ValueError("'path' list is empty")
+        for p in [self.path] if isinstance(self.path, str) else self.path or []:
+            if "://" in p or p.startswith("/vsi"):
+                raise ValueError(f"{p!r}: only local files are read (no network access "
+                                 "during a run); download the file first")
         return self
 
 

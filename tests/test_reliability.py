@@ -1,0 +1,284 @@
+"""Reliability: interruption loses nothing, reruns resume, bad input gets a clear answer."""
+
+from __future__ import annotations
+
+import json
+import signal
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+import numpy as np
+import pytest
+import rasterio
+import yaml
+from click.testing import CliRunner
+from rasterio.transform import from_origin
+
+from geothermmap import run_recipe
+from geothermmap.cli import main
+from geothermmap.outputs import OUTPUTS
+from tests.conftest import UTM, X0, Y0, make_case, write_recipe, write_tif
+
+FINAL_NAMES = {o.filename for o in OUTPUTS.values()}
+
+
+def _read_all(out: Path) -> dict[str, np.ndarray]:
+    maps = {}
+    for p in sorted(out.glob("*.tif")):
+        with rasterio.open(p) as src:
+            maps[p.name] = src.read()
+    return maps
+
+
+def _start(recipe: Path, out: Path, *extra: str) -> subprocess.Popen:
+    return subprocess.Popen(
+        [sys.executable, "-m", "geothermmap.cli", "run", str(recipe), "-o", str(out), "--quiet",
+         *extra],
+        stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+
+
+def _wait_for_blocks(out: Path, n: int, proc: subprocess.Popen, timeout: float = 120) -> None:
+    t0 = time.monotonic()
+    while time.monotonic() - t0 < timeout:
+        if len(list(out.glob(".geothermmap-work/*/blocks/*.tif"))) >= n:
+            return
+        if proc.poll() is not None:
+            pytest.fail(f"run ended before it could be interrupted: {proc.stderr.read()}")
+        time.sleep(0.05)
+    pytest.fail("no blocks appeared in time")
+
+
+@pytest.fixture(scope="module")
+def long_case(tmp_path_factory):
+    """A grid with many small blocks so that a run can be interrupted midway."""
+    tmp = tmp_path_factory.mktemp("long")
+    files = make_case(tmp, width=512, height=384)
+    recipe = write_recipe(tmp, files, chunk=64)
+    reference = run_recipe(recipe, tmp / "reference")
+    return recipe, _read_all(reference.output_dir), tmp
+
+
+@pytest.mark.slow
+def test_sigkill_then_resume_gives_identical_outputs(long_case, tmp_path):
+    recipe, reference, _ = long_case
+    out = tmp_path / "out"
+    proc = _start(recipe, out)
+    _wait_for_blocks(out, 10, proc)
+    proc.kill()  # SIGKILL: no cleanup code runs
+    proc.wait()
+    # nothing under a final name is partial: whatever exists there opens and reads fully
+    for p in out.glob("*.tif"):
+        assert p.name in FINAL_NAMES
+        with rasterio.open(p) as src:
+            src.read()
+    rec = json.loads((out / "run_record.json").read_text())
+    assert rec["status"] == "running"
+    for entry in rec["outputs"].values():  # the record lists only complete outputs
+        assert (out / entry["file"]).exists()
+
+    result = CliRunner().invoke(main, ["run", str(recipe), "-o", str(out), "--resume",
+                                       "--quiet"], catch_exceptions=False)
+    assert result.exit_code == 0, result.output
+    rec = json.loads((out / "run_record.json").read_text())
+    assert rec["status"] == "complete"
+    assert rec["counts"]["blocks_reused"] >= 10  # blocks done before the kill were kept
+    final = _read_all(out)
+    assert final.keys() == reference.keys()
+    for name, data in reference.items():
+        np.testing.assert_array_equal(final[name], data, err_msg=name)
+    assert not [p for p in out.rglob("*") if "partial" in p.name]
+    assert not (out / ".geothermmap-work").exists()
+
+
+@pytest.mark.slow
+def test_sigint_stops_cleanly_without_temporary_files(long_case, tmp_path):
+    recipe, _, _ = long_case
+    out = tmp_path / "out"
+    proc = _start(recipe, out)
+    _wait_for_blocks(out, 5, proc)
+    proc.send_signal(signal.SIGINT)
+    _, err = proc.communicate(timeout=120)
+    assert proc.returncode == 130, err
+    assert "interrupted" in err and "Traceback" not in err
+    leftovers = [p for p in out.rglob("*") if "partial" in p.name]
+    assert not leftovers
+    assert not (out / ".geothermmap-work").exists()
+    for p in out.glob("*.tif"):  # only complete maps may remain
+        with rasterio.open(p) as src:
+            src.read()
+
+
+def test_resume_skips_complete_outputs_and_changed_input_invalidates(tmp_path):
+    files = make_case(tmp_path, width=64, height=48)
+    recipe = write_recipe(tmp_path, files)
+    out = tmp_path / "out"
+    first = run_recipe(recipe, out)
+    again = run_recipe(recipe, out, resume=True)
+    assert "compute_s" not in again.record["timings"]  # nothing recomputed
+    assert again.record["outputs"]["t_mean"]["sha256"] == first.record["outputs"]["t_mean"][
+        "sha256"]
+    # change an input: the earlier outputs are no longer valid
+    with rasterio.open(files["water_content"], "r+") as dst:
+        dst.write(dst.read() * 0.5)
+    changed = run_recipe(recipe, out, resume=True)
+    assert "compute_s" in changed.record["timings"]
+    assert changed.record["run_key_base"] != first.record["run_key_base"]
+    with rasterio.open(first.outputs["damping_depth"]) as a:
+        assert a.read(1)[5, 5] != pytest.approx(
+            first.record["outputs"]["damping_depth"]["bands"][0]["mean"], rel=1e-12)
+
+
+def test_changed_recipe_invalidates_resume(tmp_path):
+    files = make_case(tmp_path, width=64, height=48)
+    out = tmp_path / "out"
+    run_recipe(write_recipe(tmp_path, files), out)
+    changed = run_recipe(write_recipe(tmp_path, files, harmonics=1), out, resume=True)
+    assert "compute_s" in changed.record["timings"]
+    assert changed.record["recipe"]["harmonics"] == 1
+
+
+# ----------------------------------------------------------------------------- bad input
+
+
+def _check(recipe: Path):
+    return CliRunner().invoke(main, ["check", str(recipe)], catch_exceptions=False)
+
+
+def _assert_error(result, *fragments):
+    assert result.exit_code == 1, result.output
+    assert "Traceback" not in result.output
+    for f in fragments:
+        assert f.lower() in result.output.lower(), result.output
+
+
+def test_truncated_geotiff(tmp_path):
+    files = make_case(tmp_path)
+    blob = files["surface_temperature"].read_bytes()
+    bad = tmp_path / "truncated.tif"
+    bad.write_bytes(blob[: len(blob) // 2])
+    files["surface_temperature"] = bad
+    _assert_error(_check(write_recipe(tmp_path, files)), "truncated.tif")
+
+
+def test_texture_fraction_declared_percent(tmp_path):
+    files = make_case(tmp_path)
+    tr = from_origin(X0, Y0, 100, 100)
+    files["sand"] = write_tif(tmp_path / "sf.tif", np.full((70, 90), 0.4), UTM, tr)
+    _assert_error(_check(write_recipe(tmp_path, files)), "look like fractions", "units: '1'")
+
+
+def test_texture_percent_declared_fraction(tmp_path):
+    files = make_case(tmp_path)
+    recipe = write_recipe(tmp_path, files)
+    data = yaml.safe_load(recipe.read_text())
+    data["inputs"]["clay"]["units"] = "1"
+    recipe.write_text(yaml.safe_dump(data))
+    _assert_error(_check(recipe), "look like percent")
+
+
+def test_water_content_above_one(tmp_path):
+    files = make_case(tmp_path)
+    tr = from_origin(X0, Y0, 100, 100)
+    files["water_content"] = write_tif(tmp_path / "w.tif", np.full((70, 90), 25.0), UTM, tr)
+    _assert_error(_check(write_recipe(tmp_path, files)), "above 1", "units: percent")
+
+
+def test_degc_declared_as_kelvin(tmp_path):
+    files = make_case(tmp_path)
+    recipe = write_recipe(tmp_path, files)
+    data = yaml.safe_load(recipe.read_text())
+    data["inputs"]["surface_temperature"]["units"] = "K"
+    recipe.write_text(yaml.safe_dump(data))
+    _assert_error(_check(recipe), "look like degc")
+
+
+def test_strict_bounds_names_first_cell(tmp_path):
+    files = make_case(tmp_path)
+    tr = from_origin(X0, Y0, 100, 100)
+    sand = np.full((70, 90), 40.0)
+    sand[12, 34] = 95.0  # with clay 5..30 % this cell exceeds 100 %
+    files["sand"] = write_tif(tmp_path / "s.tif", sand, UTM, tr)
+    recipe = write_recipe(tmp_path, files, strict=True)
+    result = CliRunner().invoke(main, ["run", str(recipe), "-o", str(tmp_path / "o")],
+                                catch_exceptions=False)
+    _assert_error(result, "sand + clay above 100 %", "row 12, col 34")
+    x, y = X0 + 34.5 * 100, Y0 - 12.5 * 100
+    assert f"x={x:.3f}" in result.output and f"y={y:.3f}" in result.output
+
+
+def test_non_strict_bounds_are_clipped_and_counted(tmp_path):
+    files = make_case(tmp_path)
+    tr = from_origin(X0, Y0, 100, 100)
+    sand = np.full((70, 90), 40.0)
+    sand[12, 34] = 95.0
+    water = np.full((70, 90), 0.3)
+    water[0, :3] = 0.9  # above porosity (~0.45 at 1.45 g cm-3)
+    files["sand"] = write_tif(tmp_path / "s.tif", sand, UTM, tr)
+    files["water_content"] = write_tif(tmp_path / "w.tif", water, UTM, tr)
+    result = run_recipe(write_recipe(tmp_path, files), tmp_path / "o")
+    assert result.counts["texture_sum_above_100_percent_rescaled"] == 1
+    assert result.counts["water_above_porosity_clipped"] == 3
+    entry = result.record["outputs"]["conductivity"]["input_corrections"]
+    assert entry["water_above_porosity_clipped"] == 3
+
+
+def test_bulk_density_beyond_mineral_density_is_masked(tmp_path):
+    files = make_case(tmp_path)
+    recipe = write_recipe(tmp_path, files)
+    data = yaml.safe_load(recipe.read_text())
+    tr = from_origin(X0, Y0, 100, 100)
+    bd = np.full((70, 90), 1.4)
+    bd[3, 4] = 2.9  # above the particle density of the solids
+    data["inputs"]["bulk_density"] = {
+        "path": str(write_tif(tmp_path / "bd.tif", bd, UTM, tr)), "units": "g cm-3"}
+    recipe.write_text(yaml.safe_dump(data))
+    result = run_recipe(recipe, tmp_path / "o")
+    assert result.counts["bulk_density_above_particle_density_masked"] == 1
+    with rasterio.open(result.outputs["t_min"]) as src:
+        assert np.isnan(src.read(1)[3, 4]) and np.isfinite(src.read(1)[3, 5])
+
+
+def test_partial_coverage_is_nodata_and_counted(tmp_path):
+    files = make_case(tmp_path)
+    tr = from_origin(X0, Y0, 100, 100)
+    files["clay"] = write_tif(tmp_path / "half.tif", np.full((70, 45), 20.0), UTM, tr)
+    result = run_recipe(write_recipe(tmp_path, files), tmp_path / "o")
+    with rasterio.open(result.outputs["conductivity"]) as src:
+        data = src.read(1)
+    assert np.isnan(data[30:40, 50:]).all() and np.isfinite(data[30:40, :40]).all()
+    assert result.counts["uncovered_input_fraction"]["clay"] == pytest.approx(0.5, abs=0.01)
+    assert any("covers about 50%" in n for n in result.record["notes"])
+
+
+def test_yaml_is_never_executed(tmp_path):
+    recipe = tmp_path / "evil.yaml"
+    recipe.write_text("name: !!python/object/apply:os.system ['echo hacked']\n")
+    _assert_error(_check(recipe), "not valid yaml")
+
+
+def test_network_paths_are_refused(tmp_path):
+    files = make_case(tmp_path)
+    recipe = write_recipe(tmp_path, files)
+    data = yaml.safe_load(recipe.read_text())
+    data["inputs"]["sand"]["path"] = "https://example.invalid/sand.tif"
+    recipe.write_text(yaml.safe_dump(data))
+    _assert_error(_check(recipe), "only local files")
+
+
+def test_wrong_type_in_recipe(tmp_path):
+    files = make_case(tmp_path)
+    _assert_error(_check(write_recipe(tmp_path, files, depths="deep")), "depths")
+    _assert_error(_check(write_recipe(tmp_path, files, chunk="big")), "chunk")
+
+
+def test_recipe_cannot_write_outside_output_folder(tmp_path):
+    files = make_case(tmp_path, width=40, height=30)
+    out = tmp_path / "o"
+    recipe = write_recipe(tmp_path, files, name="../../escape")
+    before = set(tmp_path.rglob("*"))
+    run_recipe(recipe, out)
+    after = set(tmp_path.rglob("*"))
+    new = {p for p in after - before if out not in p.parents and p != out}
+    assert not new, new
