@@ -159,39 +159,60 @@ def _summarise(result: Any, quiet: bool) -> None:
 
 
 def _run(recipe: Path | str, output: Path, workers: int | None, scheduler: str | None,
-         resume: bool, overwrite: bool, quiet: bool) -> Any:
+         resume: bool, overwrite: bool, quiet: bool, quicklook: bool = False) -> Any:
     from geothermmap.pipeline import run_recipe
 
     with _Progress(not quiet) as bar:
         result = run_recipe(recipe, output, workers=workers, scheduler=scheduler,
                             resume=resume, overwrite=overwrite, progress=bar)
     _summarise(result, quiet)
+    if quicklook:
+        _pictures(result, quiet)
     return result
+
+
+def _pictures(result: Any, quiet: bool) -> None:
+    """Quicklook PNGs and the HTML report (modules of the product layer)."""
+    try:
+        from geothermmap.quicklook import render_run
+        from geothermmap.report import write_report
+    except ModuleNotFoundError:
+        _err("note: quicklooks are not available in this installation")
+        return
+    pngs = render_run(result)
+    report = write_report(result.output_dir)
+    if not quiet:
+        click.echo(f"quicklooks: {len(pngs)} PNG maps in {result.output_dir / 'quicklook'}")
+        click.echo(f"report: {report}")
 
 
 @main.command()
 @click.argument("recipe", type=click.Path(path_type=Path))
 @click.option("-o", "--output", type=click.Path(path_type=Path), required=True,
               help="Output folder.")
+@click.option("--quicklook/--no-quicklook", default=False,
+              help="Also write PNG maps and an HTML report of the run.")
 @_run_options
 @handle_errors
-def run(recipe: Path, output: Path, workers: int | None, scheduler: str | None, resume: bool,
-        overwrite: bool, quiet: bool) -> None:
+def run(recipe: Path, output: Path, quicklook: bool, workers: int | None,
+        scheduler: str | None, resume: bool, overwrite: bool, quiet: bool) -> None:
     """Run RECIPE and write the maps into the output folder."""
-    _run(recipe, output, workers, scheduler, resume, overwrite, quiet)
+    _run(recipe, output, workers, scheduler, resume, overwrite, quiet, quicklook)
 
 
 @main.command()
 @click.option("-o", "--output", type=click.Path(path_type=Path),
               default=Path("geothermmap-out/demo"), show_default=True, help="Output folder.")
+@click.option("--quicklook/--no-quicklook", default=True, show_default=True,
+              help="Also write PNG maps and an HTML report of the run.")
 @_run_options
 @handle_errors
-def demo(output: Path, workers: int | None, scheduler: str | None, resume: bool,
-         overwrite: bool, quiet: bool) -> None:
+def demo(output: Path, quicklook: bool, workers: int | None, scheduler: str | None,
+         resume: bool, overwrite: bool, quiet: bool) -> None:
     """Run the bundled demo recipe on the bundled demo region."""
     from geothermmap.bundled import demo_recipe_path
 
-    _run(demo_recipe_path(), output, workers, scheduler, resume, overwrite, quiet)
+    _run(demo_recipe_path(), output, workers, scheduler, resume, overwrite, quiet, quicklook)
 
 
 @main.command()
@@ -217,6 +238,21 @@ def check(recipe: Path) -> None:
     for note in plan.notes:
         click.echo(f"note: {note}")
 
+
+def _register_tool_commands() -> None:
+    """Commands defined beside their product modules (each lists them in CLI_COMMANDS)."""
+    import importlib
+
+    for module_name in ("geothermmap.probe", "geothermmap.summarize", "geothermmap.report"):
+        try:
+            module = importlib.import_module(module_name)
+        except ModuleNotFoundError:
+            continue
+        for command in getattr(module, "CLI_COMMANDS", ()):
+            main.add_command(command)
+
+
+_register_tool_commands()
 
 if __name__ == "__main__":  # pragma: no cover
     main()

@@ -8,7 +8,9 @@ cells of a block only, so nodata (a lake, the edge of a source) costs nothing.
 
 from __future__ import annotations
 
+import importlib
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -45,6 +47,48 @@ class KernelResult:
     counts: dict[str, int]
     valid_cells: int
     nodata_cells: int
+
+
+@dataclass
+class CellState:
+    """Everything an output group needs about the valid cells of a block (1-D over cells).
+
+    ``inputs``: bounds-corrected canonical inputs (sand, clay, water_content, bulk_density,
+    organic_matter, optional quartz, n_factor_freezing, n_factor_thawing); ``series``: the
+    surface-temperature series as given, (12 x years, n) [degC]; ``monthly``: its monthly
+    climatology (12, n); ``props``: unfrozen soil properties; ``fit``: harmonic fit of
+    ``monthly``; ``damping_depth_m``: annual damping depth (n,).
+    """
+
+    inputs: dict[str, np.ndarray]
+    series: np.ndarray
+    monthly: np.ndarray
+    props: dict[str, np.ndarray]
+    fit: Any
+    damping_depth_m: np.ndarray
+    config: KernelConfig
+
+
+#: Output groups computed by separate modules, each exposing
+#: ``compute(state: CellState, wanted: set[str]) -> dict[str, ndarray (bands, n) or (n,)]``
+#: and optionally ``tags(config) -> dict[output, dict[str, str]]``.
+GROUP_MODULES = {
+    "freeze_thaw": "geothermmap.kernel_frost",
+    "multi_year": "geothermmap.kernel_frost",
+    "root_zone": "geothermmap.kernel_rootzone",
+    "thresholds": "geothermmap.kernel_rootzone",
+}
+
+
+def group_module(group: str):
+    """The module computing an output group, or None if this installation lacks it."""
+    name = GROUP_MODULES.get(group)
+    if name is None:
+        return None
+    try:
+        return importlib.import_module(name)
+    except ModuleNotFoundError:
+        return None
 
 
 class CellBoundsError(PhysicalBoundsError):
@@ -154,9 +198,12 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
     if "quartz" in inputs:
         fields["quartz"] = inputs["quartz"][0]
 
-    valid = np.all(np.isfinite(monthly), axis=0)
+    valid = np.all(np.isfinite(t_surf), axis=0)
     for v in fields.values():
         valid &= np.isfinite(v)
+    for key in ("n_factor_freezing", "n_factor_thawing"):
+        if key in inputs:
+            valid &= np.isfinite(inputs[key][0])
     valid_index = np.flatnonzero(valid)
     n_valid = valid_index.size
 
@@ -171,6 +218,9 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
     cells = {k: v.reshape(-1)[valid_index].astype(np.float64) for k, v in fields.items()}
     cells, counts, keep = apply_bounds(cells, config.strict, valid_index, shape)
     monthly_cells = monthly.reshape(12, -1)[:, valid_index].astype(np.float64)
+    for key in ("n_factor_freezing", "n_factor_thawing"):
+        if key in inputs:
+            cells[key] = inputs[key][0].reshape(-1)[valid_index].astype(np.float64)
 
     props = properties.soil_thermal_properties(
         cells["sand"], cells["clay"], cells["water_content"], cells["bulk_density"],
@@ -200,6 +250,21 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
     for name, fn in per_cell.items():
         if name in wanted:
             values[name] = fn()
+
+    groups = {OUTPUTS[n].group for n in wanted} - {"core"}
+    if groups:
+        state = CellState(
+            inputs=cells,
+            series=t_surf.reshape(n_months, -1)[:, valid_index].astype(np.float64),
+            monthly=monthly_cells, props=props, fit=fit, damping_depth_m=d1, config=config)
+        done: set[str] = set()
+        for group in sorted(groups):
+            module = group_module(group)
+            if module is None or module.__name__ in done:
+                continue
+            done.add(module.__name__)
+            values.update({k: v for k, v in module.compute(state, wanted).items()
+                           if k in wanted})
 
     for name, arr in values.items():
         arr = np.asarray(arr, dtype=np.float64)

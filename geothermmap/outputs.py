@@ -76,7 +76,8 @@ OUTPUTS: dict[str, OutputInfo] = {
         _O("t_max_latent", "degC", "Annual maximum temperature with latent heat",
            per_depth=True, group="freeze_thaw", frost=True),
         _O("freezing_index", "degC day", "Freezing index: degree-days below 0 degC of the "
-           "ground surface per winter", group="freeze_thaw", frost=True),
+           "ground surface, one band per winter", per_year=True, group="freeze_thaw",
+           frost=True),
         _O("frost_depth_stefan", "m", "Frost depth by the Stefan equation",
            group="freeze_thaw", frost=True),
         _O("frost_depth_berggren", "m", "Frost depth by the modified Berggren equation",
@@ -85,6 +86,8 @@ OUTPUTS: dict[str, OutputInfo] = {
            "(legend in the tags)", dtype="uint8", group="freeze_thaw", frost=True),
         _O("design_freezing_index", "degC day", "Design freezing index: mean of the 3 coldest "
            "winters of the record", group="multi_year", frost=True),
+        _O("frost_depth_winters", "m", "Frost depth of each winter of the record (numerical, "
+           "latent heat), one band per winter", per_year=True, group="multi_year", frost=True),
         _O("design_frost_depth", "m", "Frost depth for the design winter (numerical, latent "
            "heat)", group="multi_year", frost=True),
         # --- root zone and thresholds -----------------------------------------------------

@@ -29,7 +29,13 @@ from rasterio.windows import Window
 from geothermmap import record
 from geothermmap.checks import check_units
 from geothermmap.errors import InputError, RecipeError, UserError
-from geothermmap.kernel import BOUNDS_COUNTERS, CellBoundsError, KernelConfig, compute_block
+from geothermmap.kernel import (
+    BOUNDS_COUNTERS,
+    CellBoundsError,
+    KernelConfig,
+    compute_block,
+    group_module,
+)
 from geothermmap.outputs import FROST_CAUTION, OUTPUTS
 from geothermmap.raster.grid import TargetGrid
 from geothermmap.raster.inputs import (
@@ -147,11 +153,13 @@ def _layer_paths(recipe: Recipe, name: str) -> list[Path] | None:
     return [recipe.path_of(p) for p in paths]
 
 
-def select_outputs(recipe: Recipe) -> tuple[str, ...]:
+def select_outputs(recipe: Recipe, n_years: int = 1) -> tuple[str, ...]:
     """Resolve the recipe's ``outputs`` list (``all`` = every output the recipe enables)."""
     enabled_groups = {"core"}
     if recipe.freeze_thaw.enabled:
         enabled_groups.add("freeze_thaw")
+        if n_years > 1:
+            enabled_groups.add("multi_year")
     if recipe.root_zone is not None:
         enabled_groups.add("root_zone")
     if recipe.thresholds is not None:
@@ -169,16 +177,16 @@ def select_outputs(recipe: Recipe) -> tuple[str, ...]:
             hint = f" (did you mean '{close[0]}'?)" if close else ""
             raise RecipeError(f"outputs: unknown output '{item}'{hint}; valid names: all, "
                               + ", ".join(OUTPUTS))
-    supported = {n for n, o in OUTPUTS.items() if o.group in SUPPORTED_GROUPS}
-    unsupported = [n for n in names if n not in supported]
-    if unsupported:
-        raise RecipeError(f"outputs: {', '.join(unsupported)} need a recipe section that is "
-                          "not enabled or not available in this version")
+    names = [n for n in names if OUTPUTS[n].group == "core" or group_module(OUTPUTS[n].group)]
+    disabled = [n for n in names if OUTPUTS[n].group not in enabled_groups]
+    if disabled:
+        need = {"freeze_thaw": "freeze_thaw: {enabled: true}",
+                "multi_year": "freeze_thaw enabled and a multi-year (12 x Y bands) input",
+                "root_zone": "a root_zone section", "thresholds": "a thresholds section"}
+        hints = sorted({need[OUTPUTS[n].group] for n in disabled})
+        raise RecipeError(f"outputs: {', '.join(disabled)} need {'; '.join(hints)} in the "
+                          "recipe")
     return tuple(dict.fromkeys(names))
-
-
-#: Output groups this version can compute (later features extend this set).
-SUPPORTED_GROUPS = {"core"}
 
 
 def plan_run(recipe: Recipe | str | Path) -> RunPlan:
@@ -186,7 +194,6 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
     if not isinstance(recipe, Recipe):
         recipe = load_recipe(recipe)
     configure_gdal()
-    outputs = select_outputs(recipe)
     t_paths = _layer_paths(recipe, "surface_temperature")
     grid = _target_grid(recipe, t_paths[0] if t_paths else None)
 
@@ -199,6 +206,15 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
                                                units="g cm-3"))
     specs.setdefault("organic_matter", InputSpec(value=DEFAULT_ORGANIC_MATTER_PERCENT,
                                                  units="percent"))
+    if recipe.freeze_thaw.enabled and recipe.surface.kind == "air":
+        for key in ("n_factor_freezing", "n_factor_thawing"):
+            v = getattr(recipe.surface, key)
+            if isinstance(v, InputSpec):
+                specs.setdefault(key, v)
+            elif isinstance(v, str):
+                specs.setdefault(key, InputSpec(path=v, units="1"))
+            else:
+                specs.setdefault(key, InputSpec(value=float(v), units="1"))
     coverage: dict[str, float] = {}
     for name, spec in specs.items():
         if name not in _KERNEL_INPUTS:
@@ -223,8 +239,21 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
                          "cells are nodata and counted in the run record")
         layers[name] = layer
 
+    n_years = layers["surface_temperature"].n_bands // 12
+    outputs = select_outputs(recipe, n_years)
+    thresholds = recipe.thresholds.model_dump() if recipe.thresholds else None
+    extras = {
+        "freeze_thaw": recipe.freeze_thaw.model_dump(),
+        "surface_kind": recipe.surface.kind,
+        "frost_classes": list(recipe.frost_classes),
+        "n_years": n_years,
+        "root_zone": recipe.root_zone.model_dump() if recipe.root_zone else None,
+        "thresholds": thresholds,
+        "threshold_values": list(thresholds["values"]) if thresholds else [],
+    }
     config = KernelConfig(
         outputs=outputs,
+        extras=extras,
         depths_m=tuple(float(d) for d in recipe.depths),
         harmonics=recipe.harmonics,
         conductivity_model=recipe.soil.conductivity_model,
@@ -244,7 +273,7 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
 
 
 _KERNEL_INPUTS = ("surface_temperature", "sand", "clay", "water_content", "bulk_density",
-                  "organic_matter", "quartz")
+                  "organic_matter", "quartz", "n_factor_freezing", "n_factor_thawing")
 
 
 def _default_chunk(layer: InputLayer) -> int:
@@ -607,7 +636,9 @@ def output_tags(plan: RunPlan, name: str) -> dict[str, str]:
         tags["depths_m"] = ",".join(f"{d:g}" for d in plan.config.depths_m)
     if info.frost:
         tags["caution"] = FROST_CAUTION
-    tags.update(plan.config.extras.get("tags", {}).get(name, {}))
+    module = group_module(info.group) if info.group != "core" else None
+    if module is not None and hasattr(module, "tags"):
+        tags.update(module.tags(plan.config).get(name, {}))
     return tags
 
 
