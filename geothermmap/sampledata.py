@@ -32,8 +32,9 @@ functions, not a real place. The same scenario drives two products:
 The scenario, in scenario coordinates X (km east of the west edge, 0..50) and Y (km
 south of the north edge, 0..40):
 
-* a valley floor at 290-410 m along a meandering axis, with walls rising over about
-  10 km to uplands near 1750 m that carry a few summits up to about 2300 m;
+* a valley floor at 290-410 m along a meandering axis, about 4 km wide, with walls rising
+  over 11 km to rolling uplands at 1400-1700 m that carry a few summits up to about
+  2300 m;
 * annual mean ground-surface temperature 10.8 degC at 300 m, decreasing with a lapse
   rate of 6 K km-1 (:data:`LAPSE_RATE_K_PER_KM`), slightly warmer on the lake shore;
   the highest summits have an annual mean at or below 0 degC;
@@ -54,7 +55,9 @@ Monthly means are *exact* averages of the analytic cycle over the calendar month
 
 Nodata is ``-9999.0`` (:data:`NODATA`) in every file; no NaN is ever written. Files are
 float32 GeoTIFFs, tiled (256 for the demo, 512 for synthetic grids), DEFLATE with the
-floating-point predictor (PREDICTOR=3), band interleaved. No time stamp is written, so a
+floating-point predictor (PREDICTOR=3), band interleaved. Values are rounded to
+multiples of a power of two well below the noise (1/128 degC, 1/128 %, 1/4096 m3 m-3,
+1/1024 g cm-3) so that they compress well. No time stamp is written, so a
 rerun gives byte-identical files with the same GDAL build.
 
 The noise ("a little measurement noise" on every layer) comes from a counter-based hash
@@ -375,7 +378,6 @@ def generate_demo(out_dir: Path, *, overwrite: bool = True) -> dict[str, Path]:
         ``bulk_density``, ``organic_matter``) -> path of its GeoTIFF.
     """
     paths = _check_out(Path(out_dir), DEMO_LAYERS, overwrite)
-    sx_km, sy_km = SCENARIO_SIZE_KM
     x0, y0 = DEMO_ORIGIN_M
 
     # temperature grid (UTM): scenario coordinates of the cell centres
