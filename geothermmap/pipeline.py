@@ -564,15 +564,32 @@ def run_recipe(
                 k: round(1.0 - v, 6) for k, v in plan.coverage.items() if v < 0.999}
             t2 = time.perf_counter()
             block_files = [(w, block_path(work, bi, bj)) for bi, bj, w in blocks]
-            for i, name in enumerate(todo):
-                if progress:
-                    progress("maps", i, len(todo))
-                path = _write_output(plan, name, out, work, block_files)
-                entry = record.output_entry(plan, name, path, summary[name])
-                entry["input_corrections"] = {k: counts.get(k, 0) for k in BOUNDS_COUNTERS}
-                rec["outputs"][name] = entry
-                rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
-                record.write(out / RECORD_NAME, rec)  # lists only complete outputs
+            if progress:
+                progress("maps", 0, len(todo))
+            # one COG per core at a time: a single COG copy compresses on one thread
+            from concurrent.futures import ThreadPoolExecutor, as_completed
+
+            with ThreadPoolExecutor(max_workers=max(1, min(len(todo), os.cpu_count() or 1)),
+                                    thread_name_prefix="geothermmap-cog") as pool:
+                futures = {pool.submit(_write_output, plan, name, out, work, block_files): name
+                           for name in todo}
+                try:
+                    for i, fut in enumerate(as_completed(futures), start=1):
+                        name = futures[fut]
+                        path = fut.result()
+                        entry = record.output_entry(plan, name, path, summary[name])
+                        entry["input_corrections"] = {k: counts.get(k, 0)
+                                                      for k in BOUNDS_COUNTERS}
+                        rec["outputs"][name] = entry
+                        rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
+                        record.write(out / RECORD_NAME, rec)  # lists only complete outputs
+                        if progress:
+                            progress("maps", i, len(todo))
+                except BaseException:
+                    for f in futures:
+                        f.cancel()
+                    raise
+            rec["outputs"] = {n: rec["outputs"][n] for n in plan.outputs if n in rec["outputs"]}
             if progress:
                 progress("maps", len(todo), len(todo))
             timings["write_s"] = time.perf_counter() - t2
@@ -650,4 +667,4 @@ def _write_output(plan: RunPlan, name: str, out: Path, work: Path, block_files) 
     nodata = 0 if info.dtype == "uint8" else float("nan")
     return write_cog(out / info.filename, work, plan.grid, block_files, bands, dtype=info.dtype,
                      nodata=nodata, units=info.units, tags=output_tags(plan, name),
-                     compression=plan.recipe.compression)
+                     compression=plan.recipe.compression, num_threads=1)

@@ -22,6 +22,7 @@ from xml.sax.saxutils import escape
 import numpy as np
 import rasterio
 import rasterio.shutil
+from rasterio.enums import Resampling
 from rasterio.windows import Window
 
 from geothermmap.raster.grid import TargetGrid
@@ -144,22 +145,33 @@ def write_cog(
         encoding="utf-8",
     )
     tmp = out_path.with_name(f".{out_path.stem}{PARTIAL_SUFFIX}.tif")
+    mosaic = work_dir / f"{out_path.stem}.mosaic.tif"
     options = dict(COMPRESSION_OPTIONS[compression])
     if dtype == "uint8":
         options["PREDICTOR"] = "NO"
-    resampling = "NEAREST" if dtype == "uint8" else "AVERAGE"
+    resampling = Resampling.nearest if dtype == "uint8" else Resampling.average
+    factors = [2**k for k in range(1, overview_count(grid.width, grid.height) + 1)]
     with rasterio.Env(GDAL_NUM_THREADS=str(num_threads), GDAL_CACHEMAX=256):
+        # Overviews computed from the VRT mosaic are slow (GDAL re-reads the sources per
+        # level: 4x slower measured); so: VRT -> uncompressed tiled mosaic -> overviews on
+        # it -> one compressing COG copy that reuses those overviews.
+        rasterio.shutil.copy(str(vrt_path), str(mosaic), driver="GTiff", TILED="YES",
+                             BLOCKXSIZE=str(COG_BLOCKSIZE), BLOCKYSIZE=str(COG_BLOCKSIZE),
+                             BIGTIFF="IF_SAFER", INTERLEAVE="BAND")
+        with rasterio.open(mosaic, "r+") as dst:
+            dst.build_overviews(factors, resampling)
         rasterio.shutil.copy(
-            str(vrt_path),
+            str(mosaic),
             str(tmp),
             driver="COG",
             BLOCKSIZE=str(COG_BLOCKSIZE),
-            OVERVIEW_COUNT=str(overview_count(grid.width, grid.height)),
-            RESAMPLING=resampling,
+            OVERVIEWS="FORCE_USE_EXISTING",
             NUM_THREADS=str(num_threads),
             BIGTIFF="IF_SAFER",
             **options,
         )
+    mosaic.unlink(missing_ok=True)
+    Path(str(mosaic) + ".ovr").unlink(missing_ok=True)
     os.replace(tmp, out_path)
     vrt_path.unlink(missing_ok=True)
     return out_path
