@@ -155,7 +155,7 @@ def _summarise(result: Any, quiet: bool) -> None:
         click.echo(f"note: {note}")
     click.echo(f"run record: {result.record_path}")
     if any(OUTPUTS[n].frost for n in result.outputs):
-        click.echo(f"CAUTION: frost maps are screening estimates. {FROST_CAUTION}")
+        click.echo(f"CAUTION (frost maps): {FROST_CAUTION}")
 
 
 def _run(recipe: Path | str, output: Path, workers: int | None, scheduler: str | None,
