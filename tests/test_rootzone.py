@@ -11,15 +11,19 @@ Sources of truth:
 from __future__ import annotations
 
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
+import rasterio
 from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy.integrate import quad
 
-from geothermmap.physics import rootzone
+from geothermmap import run_recipe
+from geothermmap.physics import harmonics, periodic, properties, rootzone
 from geothermmap.physics.harmonics import HarmonicFit
+from tests.conftest import make_case, write_recipe
 
 YEAR = 365.25
 W = 2 * math.pi / YEAR
@@ -324,3 +328,59 @@ def test_invariants(mean, a1, b1, a2, b2, d, z, thr):
     surf = rootzone.root_zone_statistics(fit, d, 0.0, 0.0)
     assert float(avg["t_max"]) <= float(surf["t_max"]) + 1e-9
     assert float(avg["t_min"]) >= float(surf["t_min"]) - 1e-9
+
+
+# ------------------------------------------------------------------ kernel, end to end
+# Reference: the physics functions called on the inputs of one cell read directly from
+# the test files (an independent path from the block pipeline: no windows, no kernel).
+
+
+def test_run_recipe_root_zone_and_thresholds(tmp_path):
+    files = make_case(tmp_path)
+    recipe = write_recipe(
+        tmp_path, files, depths=[0.1, 0.3],
+        outputs=["t_mean", "root_zone_t_mean", "root_zone_t_min", "root_zone_t_max",
+                 "warming_doy", "cooling_doy", "days_above", "degree_days"],
+        root_zone={"top": 0.0, "bottom": 0.3},
+        thresholds={"depth": 0.1, "values": [5, 10], "degree_day_base": 5})
+    result = run_recipe(recipe, tmp_path / "out")
+
+    def read(name: str) -> np.ndarray:
+        path = Path(result.outputs[name])
+        assert path.exists()
+        with rasterio.open(path) as src:
+            return src.read().astype(np.float64)
+
+    maps = {n: read(n) for n in result.outputs}
+    for name in ("root_zone_t_mean", "root_zone_t_min", "root_zone_t_max", "degree_days"):
+        assert maps[name].shape[0] == 1
+    for name in ("warming_doy", "cooling_doy", "days_above"):
+        assert maps[name].shape[0] == 2  # one band per threshold
+    with rasterio.open(result.outputs["warming_doy"]) as src:
+        assert src.tags()["code_never_above"].startswith("-1")
+
+    row, col = 40, 60
+    with rasterio.open(files["surface_temperature"]) as src:
+        t12 = src.read()[:, row, col].astype(np.float64)
+    cell = {}
+    for name in ("sand", "clay", "water_content"):
+        with rasterio.open(files[name]) as src:
+            cell[name] = float(src.read(1)[row, col])
+    props = properties.soil_thermal_properties(
+        np.array([cell["sand"] / 100]), np.array([cell["clay"] / 100]),
+        np.array([cell["water_content"]]), np.array([1450.0]), np.array([0.02]))
+    fit = harmonics.fit_harmonics(t12.reshape(12, 1), 2)
+    d = periodic.damping_depth(props["diffusivity_m2_s"])
+    rz_stats = rootzone.root_zone_statistics(fit, d, 0.0, 0.3)
+    # float32 maps: 1e-5 relative plus 1e-4 absolute for rounding of the stored value
+    for key in ("t_mean", "t_min", "t_max"):
+        assert maps[f"root_zone_{key}"][0, row, col] == pytest.approx(
+            rz_stats[key][0], rel=1e-5, abs=1e-4)
+    for i, thr in enumerate((5.0, 10.0)):
+        ref = rootzone.threshold_crossings(fit, d, 0.1, thr)
+        for key in ("warming_doy", "cooling_doy", "days_above"):
+            assert maps[key][i, row, col] == pytest.approx(ref[key][0], rel=1e-5, abs=1e-3)
+    ref_dd = rootzone.degree_days(fit, d, 0.1, 5.0)[0]
+    assert maps["degree_days"][0, row, col] == pytest.approx(ref_dd, rel=1e-5)
+    # nodata hole of make_case stays nodata
+    assert np.isnan(maps["days_above"][:, 11, 22]).all()
