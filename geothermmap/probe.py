@@ -1,0 +1,267 @@
+"""Probe one point of a recipe: inputs, soil properties and the temperature profile there.
+
+``geothermmap probe RECIPE --at X Y`` runs the *same code path as the maps* on a 1 x 1
+window: :func:`geothermmap.pipeline.plan_run` fixes the grid and the aligned input layers,
+each layer is read with ``layer.read(plan.grid, window)`` and the cell goes through
+:func:`geothermmap.kernel.compute_block` with the recipe's kernel configuration. So a
+probed number equals the map value of that cell (up to the float32 rounding of the map).
+The point is the grid cell whose area contains (X, Y) after transforming it to the grid
+CRS. The depth table and the plot ask the kernel for a few more outputs than the recipe
+lists (mean, amplitude, extremes, lag at every depth); the plot's envelope is the kernel's
+``t_min`` / ``t_max`` on a fine depth grid, the dated profiles evaluate the periodic
+solution with the cell's harmonic fit.
+"""
+
+from __future__ import annotations
+
+import csv
+import dataclasses
+import math
+import sys
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import click
+import numpy as np
+from rasterio.crs import CRS
+from rasterio.errors import CRSError
+from rasterio.warp import transform as warp_transform
+from rasterio.windows import Window
+
+from geothermmap.cli import handle_errors
+from geothermmap.errors import UserError
+from geothermmap.kernel import compute_block, output_band_count
+from geothermmap.outputs import FROST_CAUTION, OUTPUTS
+from geothermmap.physics import harmonics, periodic
+from geothermmap.physics.harmonics import MONTH_EDGES_DAYS, HarmonicFit
+
+#: Outputs the depth table needs in addition to the recipe's.
+TABLE_OUTPUTS = ("t_mean", "amplitude", "t_min", "t_max", "phase_lag")
+#: Per-cell outputs always shown (soil properties and damping depth).
+CELL_OUTPUTS = ("conductivity", "heat_capacity", "diffusivity", "damping_depth")
+#: Dated profiles of the plot: (label, days since January 1st 00:00).
+PROFILE_DATES = (("1 Feb", float(MONTH_EDGES_DAYS[1])), ("1 May", float(MONTH_EDGES_DAYS[4])),
+                 ("1 Aug", float(MONTH_EDGES_DAYS[7])), ("1 Nov", float(MONTH_EDGES_DAYS[10])))
+_INPUT_UNITS = {"surface_temperature": "degC", "sand": "1", "clay": "1",
+                "water_content": "m3 m-3", "bulk_density": "kg m-3", "organic_matter": "1",
+                "quartz": "1", "n_factor_freezing": "1", "n_factor_thawing": "1"}
+
+
+@dataclass
+class ProbeResult:
+    """What :func:`probe_point` found at one cell."""
+
+    x: float  # the point in the grid CRS [map units]
+    y: float
+    row: int
+    col: int
+    inputs: dict[str, np.ndarray]  # name -> (bands,) canonical units
+    outputs: dict[str, np.ndarray]  # name -> (bands,) as in the maps
+    depths_m: tuple[float, ...]
+    plan: Any
+
+    @property
+    def fit(self) -> HarmonicFit:
+        """Harmonic fit of the cell's monthly surface-temperature climatology."""
+        t = self.inputs["surface_temperature"]
+        monthly = t.reshape(-1, 12).mean(axis=0).reshape(12, 1)
+        return harmonics.fit_harmonics(monthly, self.plan.config.harmonics)
+
+    @property
+    def damping_depth_m(self) -> float:
+        return float(self.outputs["damping_depth"][0])
+
+
+def _cell_of(plan: Any, x: float, y: float, crs: str) -> tuple[float, float, int, int]:
+    try:
+        src = CRS.from_user_input(crs)
+    except (CRSError, ValueError) as err:
+        raise UserError(f"--crs {crs!r} is not a CRS ({err})") from None
+    grid = plan.grid
+    if not (math.isfinite(x) and math.isfinite(y)):
+        raise UserError("--at X Y must be finite numbers")
+    xs, ys = warp_transform(src, grid.crs, [x], [y])
+    gx, gy = float(xs[0]), float(ys[0])
+    col_f, row_f = ~grid.affine @ (gx, gy)
+    if not (math.isfinite(col_f) and math.isfinite(row_f)):
+        raise UserError(f"point ({x}, {y}) in {crs} cannot be transformed to the grid CRS "
+                        f"{grid.crs.to_string()}")
+    row, col = math.floor(row_f), math.floor(col_f)
+    if not (0 <= row < grid.height and 0 <= col < grid.width):
+        b = grid.bounds
+        raise UserError(
+            f"point ({x}, {y}) in {crs} is outside the output grid: it is at "
+            f"({gx:.3f}, {gy:.3f}) in {grid.crs.to_string()}, the grid covers x "
+            f"{b[0]:.3f}..{b[2]:.3f}, y {b[1]:.3f}..{b[3]:.3f}; check the order (X = "
+            "easting/longitude first) and --crs")
+    return gx, gy, row, col
+
+
+def probe_point(recipe: Any, x: float, y: float, crs: str = "EPSG:4326",
+                extra_depths_m: tuple[float, ...] = ()) -> ProbeResult:
+    """Compute every output of a recipe at one point, through the map code path.
+
+    Parameters
+    ----------
+    recipe
+        A :class:`~geothermmap.recipe.Recipe` or the path of a YAML recipe.
+    x, y
+        The point (easting/longitude first). [units of ``crs``]
+    crs
+        CRS of ``x, y`` (anything ``rasterio.crs.CRS.from_user_input`` reads).
+    extra_depths_m
+        Depths to add to the recipe's for the per-depth outputs (the plot uses a fine
+        grid). [m]
+
+    Raises
+    ------
+    UserError
+        The point is outside the grid or has nodata in an input.
+    """
+    from geothermmap.pipeline import plan_run
+
+    plan = plan_run(recipe)
+    gx, gy, row, col = _cell_of(plan, x, y, crs)
+    window = Window(col, row, 1, 1)
+    inputs = {name: layer.read(plan.grid, window) for name, layer in plan.layers.items()}
+    depths = tuple(plan.config.depths_m) + tuple(
+        d for d in extra_depths_m if d not in plan.config.depths_m)
+    wanted = tuple(dict.fromkeys((*plan.outputs, *TABLE_OUTPUTS, *CELL_OUTPUTS)))
+    config = dataclasses.replace(plan.config, outputs=wanted, depths_m=depths)
+    result = compute_block(inputs, config)
+    if result.valid_cells == 0:
+        missing = [n for n, a in inputs.items() if not np.all(np.isfinite(a))]
+        why = (f"nodata in input(s) {', '.join(missing)}" if missing else
+               "the cell was masked by the physical-bounds checks (bulk density at or above "
+               "particle density)")
+        raise UserError(f"no valid data at point ({x}, {y}) in {crs} (grid row {row}, col "
+                        f"{col}): {why}")
+    outputs = {n: a[:, 0, 0].astype(np.float64) for n, a in result.outputs.items()}
+    for name in outputs:  # keep band counts of the recipe's layout for non-depth outputs
+        if not OUTPUTS[name].per_depth:
+            assert outputs[name].shape[0] == output_band_count(name, config)
+    return ProbeResult(gx, gy, row, col, {n: a[:, 0, 0].astype(np.float64)
+                                          for n, a in inputs.items()},
+                       outputs, depths, plan)
+
+
+def depth_table(res: ProbeResult, depths_m: tuple[float, ...] | None = None) -> list[dict]:
+    """Rows ``depth_m, t_mean, amplitude, t_min, t_max, phase_lag`` (recipe depths)."""
+    depths = res.plan.config.depths_m if depths_m is None else depths_m
+    rows = []
+    for d in depths:
+        j = res.depths_m.index(d)
+        rows.append({"depth_m": d, **{k: float(res.outputs[k][j]) for k in TABLE_OUTPUTS}})
+    return rows
+
+
+def _fmt(v: float) -> str:
+    return "nodata" if not math.isfinite(v) else f"{v:.4g}"
+
+
+def _print_report(res: ProbeResult, x: float, y: float, crs: str) -> None:
+    plan = res.plan
+    click.echo(f"point ({x}, {y}) {crs} -> ({res.x:.3f}, {res.y:.3f}) "
+               f"{plan.grid.crs.to_string()}, grid row {res.row}, col {res.col}")
+    click.echo("inputs (canonical units):")
+    for name, vals in res.inputs.items():
+        shown = ", ".join(_fmt(v) for v in vals[:12]) + (" ..." if vals.size > 12 else "")
+        click.echo(f"  {name:20s} {_INPUT_UNITS.get(name, ''):8s} {shown}")
+    click.echo("soil properties:")
+    for name in CELL_OUTPUTS:
+        click.echo(f"  {name:20s} {OUTPUTS[name].units:10s} {_fmt(res.outputs[name][0])}")
+    click.echo("depth table:")
+    click.echo(f"  {'depth m':>8s} {'mean degC':>10s} {'ampl K':>8s} {'min degC':>9s} "
+               f"{'max degC':>9s} {'lag days':>9s}")
+    for r in depth_table(res):
+        click.echo(f"  {r['depth_m']:8.3g} {r['t_mean']:10.3f} {r['amplitude']:8.3f} "
+                   f"{r['t_min']:9.3f} {r['t_max']:9.3f} {r['phase_lag']:9.1f}")
+    others = [n for n in plan.outputs if n not in (*TABLE_OUTPUTS, *CELL_OUTPUTS)]
+    if others:
+        click.echo("other outputs of the recipe:")
+    for name in others:
+        info = OUTPUTS[name]
+        vals = res.outputs[name]
+        if info.per_depth:
+            labels = [f"{d:g} m" for d in plan.config.depths_m]
+        elif info.per_threshold:
+            labels = [f"{v:g} degC" for v in plan.config.extras.get("threshold_values", ())]
+        else:
+            labels = [""] * vals.size
+        shown = ", ".join(f"{_fmt(v)}" + (f" ({lab})" if lab else "")
+                          for v, lab in zip(vals, labels, strict=False))
+        click.echo(f"  {name:28s} {info.units:12s} {shown}")
+        if name == "frost_depth":
+            click.echo(f"  CAUTION: {FROST_CAUTION}")
+
+
+def write_plot(res: ProbeResult, path: Path) -> Path:
+    """PNG: annual envelope (min, max) and mean vs depth, 0 degC, and dated profiles."""
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+
+    d = res.damping_depth_m
+    zmax = max(max(res.plan.config.depths_m), 3.0 * d if math.isfinite(d) else 2.0)
+    z = np.linspace(0.0, zmax, 61)
+    dense = probe_point(res.plan.recipe, res.x, res.y, res.plan.grid.crs.to_wkt(),
+                        extra_depths_m=tuple(float(v) for v in z))
+    idx = [dense.depths_m.index(float(v)) for v in z]
+    fig, ax = plt.subplots(figsize=(6, 6.5), dpi=100)
+    ax.fill_betweenx(z, dense.outputs["t_min"][idx], dense.outputs["t_max"][idx],
+                     color="0.88", label="annual range (min to max)")
+    ax.plot(dense.outputs["t_min"][idx], z, color="tab:blue", lw=1.5, label="annual minimum")
+    ax.plot(dense.outputs["t_max"][idx], z, color="tab:red", lw=1.5, label="annual maximum")
+    ax.plot(dense.outputs["t_mean"][idx], z, color="k", lw=1, ls="--", label="annual mean")
+    fit = res.fit
+    for (label, t), style in zip(PROFILE_DATES, (":", "-.", ":", "-."), strict=True):
+        prof = periodic.temperature_at_depth(fit, d, z[:, None], t)[:, 0]
+        ax.plot(prof, z, lw=1, ls=style, label=label)
+    ax.axvline(0.0, color="tab:cyan", lw=1, label="0 degC")
+    ax.invert_yaxis()
+    ax.set_xlabel("temperature [degC]")
+    ax.set_ylabel("depth [m]")
+    ax.set_title(f"row {res.row}, col {res.col}; damping depth {d:.2f} m", fontsize=10)
+    ax.legend(fontsize=8, loc="lower right")
+    ax.grid(alpha=0.3)
+    fig.tight_layout()
+    path = Path(path)
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fig.savefig(path)
+    plt.close(fig)
+    return path
+
+
+@click.command()
+@click.argument("recipe", type=click.Path(path_type=Path))
+@click.option("--at", "at", nargs=2, type=float, required=True, metavar="X Y",
+              help="The point, easting/longitude first.")
+@click.option("--crs", default="EPSG:4326", show_default=True, help="CRS of X Y.")
+@click.option("--plot", type=click.Path(path_type=Path), default=None, metavar="FILE.png",
+              help="Also draw the annual envelope and dated profiles to a PNG.")
+@click.option("--csv", "as_csv", is_flag=True,
+              help="Print the depth table as CSV on stdout (nothing else).")
+@handle_errors
+def probe(recipe: Path, at: tuple[float, float], crs: str, plot: Path | None,
+          as_csv: bool) -> None:
+    """Inputs, soil properties and the temperature profile of RECIPE at one point."""
+    x, y = at
+    res = probe_point(recipe, x, y, crs)
+    if as_csv:
+        rows = depth_table(res)
+        writer = csv.DictWriter(sys.stdout, fieldnames=list(rows[0]), lineterminator="\n")
+        writer.writeheader()
+        for r in rows:
+            writer.writerow({k: (f"{v:.9g}" if isinstance(v, float) else v)
+                             for k, v in r.items()})
+    else:
+        _print_report(res, x, y, crs)
+    if plot is not None:
+        out = write_plot(res, plot)
+        if not as_csv:
+            click.echo(f"plot: {out}")
+
+
+CLI_COMMANDS = [probe]
