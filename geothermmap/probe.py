@@ -180,6 +180,7 @@ def _print_report(res: ProbeResult, x: float, y: float, crs: str) -> None:
     others = [n for n in plan.outputs if n not in (*TABLE_OUTPUTS, *CELL_OUTPUTS)]
     if others:
         click.echo("other outputs of the recipe:")
+    cautioned = False
     for name in others:
         info = OUTPUTS[name]
         vals = res.outputs[name]
@@ -192,8 +193,9 @@ def _print_report(res: ProbeResult, x: float, y: float, crs: str) -> None:
         shown = ", ".join(f"{_fmt(v)}" + (f" ({lab})" if lab else "")
                           for v, lab in zip(vals, labels, strict=False))
         click.echo(f"  {name:28s} {info.units:12s} {shown}")
-        if name == "frost_depth":
+        if info.frost and not cautioned:  # once, under the first frost output shown
             click.echo(f"  CAUTION: {FROST_CAUTION}")
+            cautioned = True
 
 
 def write_plot(res: ProbeResult, path: Path) -> Path:
