@@ -45,6 +45,15 @@ _SPINUP_TOL_K = 0.01  # K, January-1st profile repeat tolerance of the spin-up
 _MAX_SPINUP_AUTO = 30  # years, limit of the automatic spin-up
 _N_LAYERS = 40
 _FIRST_LAYER_M = 0.02
+_BOTTOM_M = 20.0
+
+
+def solver_grid(depths_m) -> np.ndarray:
+    """The solver grid of every cell: 40 layers from 2 cm, bottom at 20 m (or 1.5 x the
+    deepest recipe depth). The same for all cells, so a cell's result does not depend on
+    its block; 20 m is >= 5.7 annual damping depths for diffusivities up to 1.5e-6 m2 s-1."""
+    bottom = max(_BOTTOM_M, 1.5 * float(np.max(depths_m, initial=0.0)))
+    return freezethaw.depth_grid(bottom, _N_LAYERS, _FIRST_LAYER_M)
 
 
 def _settings(config: KernelConfig) -> dict:
@@ -120,9 +129,7 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
     fi, fdays = frost.freezing_index_per_winter(daily, 365, dt)  # (W, n)
 
     d1 = np.asarray(state.damping_depth_m, dtype=np.float64)
-    bottom = float(np.clip(np.nanmax(np.append(5.0 * d1, 20.0)), 20.0, 60.0))
-    bottom = max(bottom, 1.5 * float(depths.max(initial=0.0)))
-    grid = freezethaw.depth_grid(bottom, _N_LAYERS, _FIRST_LAYER_M)
+    grid = solver_grid(cfg.depths_m)
 
     frost_y = np.zeros((fi.shape[0], n))
     frost_max = np.zeros(n)

@@ -1,0 +1,123 @@
+"""End-to-end frost runs on small invented rasters (tests/conftest.py helpers).
+
+Checks: contract file names, uint8 frost_class with a legend, thaw_depth nodata where the
+ground does not stay frozen at depth, one map cell equal to the direct physics computation,
+and the design outputs of a multi-year (36-band) input.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+import pytest
+import rasterio
+
+from geothermmap import run_recipe
+from geothermmap.kernel_frost import solver_grid
+from geothermmap.physics import freezethaw, frost, harmonics, properties
+from tests.conftest import make_case, write_recipe, write_tif
+
+FROST_FILES = [
+    "frost_depth_latent", "thaw_depth", "frozen_days", "t_min_latent", "t_max_latent",
+    "freezing_index", "frost_depth_stefan", "frost_depth_berggren", "frost_class",
+]
+MULTI_FILES = ["design_freezing_index", "design_frost_depth", "frost_depth_winters"]
+DEPTHS = [0.1, 0.5, 1.0, 2.0]
+
+
+def _read(path: Path) -> tuple[np.ndarray, dict, object]:
+    with rasterio.open(path) as ds:
+        return ds.read(masked=True), ds.tags(), ds
+
+
+@pytest.fixture(scope="module")
+def single_year(tmp_path_factory):
+    tmp = tmp_path_factory.mktemp("frost1")
+    files = make_case(tmp, width=40, height=30)
+    recipe = write_recipe(tmp, files, freeze_thaw={"enabled": True}, depths=DEPTHS)
+    return run_recipe(recipe, tmp / "out"), files
+
+
+def test_files_and_tags(single_year):
+    res, _ = single_year
+    for name in FROST_FILES:
+        path = res.output_dir / f"{name}.tif"
+        assert path.exists(), name
+        with rasterio.open(path) as ds:
+            tags = ds.tags()
+            assert "Screening estimate" in tags["caution"], name
+            if name == "frost_class":
+                assert ds.dtypes[0] == "uint8"
+                assert tags["class_1"] == "no frost" and tags["class_1_color"].startswith("#")
+                assert "frozen at depth" in tags["class_7"]
+    for name in MULTI_FILES:  # a 12-band input has no design outputs
+        assert not (res.output_dir / f"{name}.tif").exists()
+
+
+def test_thaw_depth_only_where_frozen_at_depth(single_year):
+    res, _ = single_year
+    thaw, _, _ = _read(res.output_dir / "thaw_depth.tif")
+    cls, _, _ = _read(res.output_dir / "frost_class.tif")
+    frozen_at_depth = cls[0].filled(0) == 7
+    assert frozen_at_depth.any() and (~frozen_at_depth & ~cls[0].mask).any()
+    np.testing.assert_array_equal(~thaw[0].mask, frozen_at_depth)
+    days, _, _ = _read(res.output_dir / "frozen_days.tif")
+    fd, _, _ = _read(res.output_dir / "frost_depth_latent.tif")
+    # never-freezing cells: frost depth 0 and no frozen days
+    calm = (cls[0].filled(0) == 1)
+    assert calm.any()
+    assert np.all(fd[0][calm] == 0.0) and np.all(days[:, calm] == 0.0)
+
+
+def test_point_equals_direct_physics(single_year):
+    res, files = single_year
+    row, col = 25, 5  # a cold cell with seasonal frost (invented data, see make_case)
+    vals = {}
+    for key in ("surface_temperature", "sand", "clay", "water_content"):
+        with rasterio.open(files[key]) as ds:
+            vals[key] = ds.read()[:, row, col].astype(np.float64)
+    sand, clay, water = vals["sand"][0] / 100, vals["clay"][0] / 100, vals["water_content"][0]
+    args = (sand, clay, water, 1450.0, 0.02)
+    unf = properties.soil_thermal_properties(*args)
+    frz = properties.soil_thermal_properties(*args, frozen=True)
+    fit = harmonics.fit_harmonics(vals["surface_temperature"][:, None], 2)
+    daily = freezethaw.daily_forcing_from_harmonics(fit.mean, fit.cos_coef, fit.sin_coef)
+    r = freezethaw.solve_freeze_thaw(
+        daily, unf["conductivity_w_mk"], frz["conductivity_w_mk"], unf["heat_capacity_j_m3k"],
+        frz["heat_capacity_j_m3k"], water, DEPTHS, bottom_heat_flux_w_m2=0.06,
+        dt_days=365.25 / 365, grid_m=solver_grid(DEPTHS))
+    fi, _ = frost.freezing_index_per_winter(daily, 365, 365.25 / 365)
+    assert r.frost_depth_m[0] > 0.0
+    fd, _, _ = _read(res.output_dir / "frost_depth_latent.tif")
+    tmin, _, _ = _read(res.output_dir / "t_min_latent.tif")
+    fmap, _, _ = _read(res.output_dir / "freezing_index.tif")
+    # float32 storage of the maps: relative 1e-6
+    assert float(fd[0, row, col]) == pytest.approx(float(r.frost_depth_m[0]), rel=1e-5)
+    np.testing.assert_allclose(tmin[:, row, col], r.t_min_degC[:, 0], rtol=1e-5, atol=1e-5)
+    assert float(fmap[0, row, col]) == pytest.approx(float(fi[0, 0]), rel=1e-5)
+
+
+def test_multi_year_design_outputs(tmp_path):
+    files = make_case(tmp_path, width=24, height=20, nodata_hole=False)
+    with rasterio.open(files["surface_temperature"]) as ds:
+        t12, crs, tr = ds.read(), ds.crs, ds.transform
+    # three invented winters: mild, cold, medium (offsets of the whole year)
+    t36 = np.concatenate([t12 + 1.5, t12 - 2.0, t12]).astype(np.float32)
+    files["surface_temperature"] = write_tif(tmp_path / "t36.tif", t36, crs, tr)
+    recipe = write_recipe(tmp_path, files, freeze_thaw={"enabled": True}, depths=DEPTHS)
+    res = run_recipe(recipe, tmp_path / "out")
+    for name in FROST_FILES + MULTI_FILES:
+        assert (res.output_dir / f"{name}.tif").exists(), name
+    fi, _, _ = _read(res.output_dir / "freezing_index.tif")
+    dfi, _, _ = _read(res.output_dir / "design_freezing_index.tif")
+    winters, _, _ = _read(res.output_dir / "frost_depth_winters.tif")
+    design, _, _ = _read(res.output_dir / "design_frost_depth.tif")
+    assert fi.shape[0] == 3 and winters.shape[0] == 3
+    # 3 winters: the design index is the mean of all three (U.S. Army practice: mean of
+    # the 3 coldest winters), float32 storage
+    np.testing.assert_allclose(dfi[0], fi.mean(axis=0), rtol=1e-5, atol=1e-3)
+    np.testing.assert_allclose(design[0], winters.mean(axis=0), rtol=1e-5, atol=1e-5)
+    # the colder winter (band 2) freezes more than the mild one (band 1)
+    cold = fi[1] > 0
+    assert np.all(fi[1][cold] >= fi[0][cold]) and np.all(winters[1] >= winters[0] - 1e-6)
