@@ -84,8 +84,8 @@ MONTH_DAYS_365 = np.array([31, 28, 31, 30, 31, 30, 31, 31, 30, 31, 30, 31], dtyp
 
 # Non-linear iteration controls of the kernel (numerical choices, not physics).
 _MAX_ITER = 60  # iterations per time step before giving up (counted in unconverged_steps)
-_TOL_T_K = 1e-5  # K, max |T(H) - T_linear| of a node for convergence
-_TOL_K_REL = 1e-5  # relative change of a node's conductivity for convergence
+_TOL_T_K = 1e-4  # K, max |T(H) - T_linear| of a node for convergence
+_TOL_K_REL = 1e-3  # relative change of a node's conductivity for convergence
 
 
 # --------------------------------------------------------------------------- grid
@@ -185,9 +185,11 @@ def daily_forcing_from_harmonics(
     for h in range(cos_coef.shape[0]):
         phase = (h + 1) * omega * t
         shape = (n_days,) + (1,) * len(cells)
-        out = out + np.cos(phase).reshape(shape) * cos_coef[h] + np.sin(phase).reshape(
-            shape
-        ) * sin_coef[h]
+        out = (
+            out
+            + np.cos(phase).reshape(shape) * cos_coef[h]
+            + np.sin(phase).reshape(shape) * sin_coef[h]
+        )
     return out
 
 
@@ -298,7 +300,7 @@ def periodic_initial_profile(
     damping_depth_m: np.ndarray | float,
     grid_m: np.ndarray,
     *,
-    t_days: float = 0.0,
+    t_days: np.ndarray | float = 0.0,
     bottom_heat_flux_w_m2: np.ndarray | float = 0.0,
     conductivity_w_mk: np.ndarray | float | None = None,
 ) -> np.ndarray:
@@ -322,7 +324,8 @@ def periodic_initial_profile(
     sin_coef : Sine coefficients, shape ``(H, *cells)``. [K]
     damping_depth_m : Annual damping depth ``sqrt(2 alpha / w)`` of the ground. [m]
     grid_m : Node depths, shape ``(nz,)``. [m]
-    t_days : Time of the profile, days since January 1st 00:00. [d]
+    t_days : Time of the profile, days since January 1st 00:00 (scalar or
+        per cell). [d]
     bottom_heat_flux_w_m2 : Geothermal heat flux into the column (positive
         upward). [W m-2]
     conductivity_w_mk : Conductivity for the geothermal gradient. [W m-1 K-1]
@@ -341,7 +344,8 @@ def periodic_initial_profile(
     cos_coef = np.asarray(cos_coef, dtype=np.float64)
     sin_coef = np.asarray(sin_coef, dtype=np.float64)
     d1 = np.asarray(damping_depth_m, dtype=np.float64)
-    cells = np.broadcast_shapes(mean.shape, cos_coef.shape[1:], d1.shape)
+    t_days = np.asarray(t_days, dtype=np.float64)
+    cells = np.broadcast_shapes(mean.shape, cos_coef.shape[1:], d1.shape, t_days.shape)
     zz = z.reshape((-1,) + (1,) * len(cells))
     omega = 2.0 * np.pi / DAYS_PER_YEAR
     prof = np.broadcast_to(mean, cells) + np.zeros_like(zz)
@@ -426,12 +430,154 @@ def _thaw_depth_from_envelope(env, s, z, t_hi):  # pragma: no cover - compiled
     return np.nan
 
 
+@njit(cache=True, nogil=True)
+def _load_slot(
+    s,
+    c,
+    par,
+    ku_a,
+    kf_a,
+    cu_a,
+    cf_a,
+    lv_a,
+    qb_a,
+    t_init,
+    t_lo,
+    t_hi,
+    T,
+    H,
+    t_start,
+    tmn,
+    tmx,
+    tsum,
+    fdays,
+    tmin_c,
+    tmax_c,
+):  # pragma: no cover - compiled
+    """Put cell c into slot s: constants, initial profile and enthalpy, empty statistics."""
+    dtr = t_hi - t_lo
+    kf = kf_a[c]
+    cf = cf_a[c]
+    cu = cu_a[c]
+    lv = lv_a[c]
+    par[0, s] = kf
+    par[1, s] = ku_a[c] - kf
+    par[2, s] = cf
+    par[3, s] = cu - cf
+    par[4, s] = 1.0 / cf
+    par[5, s] = 1.0 / cu
+    par[6, s] = lv
+    par[7, s] = lv / dtr
+    par[8, s] = qb_a[c]
+    par[9, s] = dtr * 0.5 * (cf + cu) + lv
+    par[10, s] = 0.5 * (cu - cf) * dtr
+    par[11, s] = cf * dtr + lv
+    for i in range(T.shape[0]):
+        tt = t_init[i, c]
+        T[i, s] = tt
+        t_start[i, s] = tt
+        phi = min(max((tt - t_lo) / dtr, 0.0), 1.0)
+        H[i, s] = (
+            cf * min(tt - t_lo, 0.0)
+            + phi * (dtr * (cf + 0.5 * (cu - cf) * phi) + lv)
+            + cu * max(tt - t_hi, 0.0)
+        )
+        tmn[i, s] = np.inf
+        tmx[i, s] = -np.inf
+        tsum[i, s] = 0.0
+    for j in range(fdays.shape[0]):
+        fdays[j, s] = 0.0
+        tmin_c[j, s] = np.inf
+        tmax_c[j, s] = -np.inf
+
+
+@njit(cache=True, nogil=True)
+def _deep_mean_correction(
+    s, T, H, tsum, tmn, tmx, z, nsteps, t_lo, t_hi, par
+):  # pragma: no cover - compiled
+    """Spin-up acceleration: put the deep annual-mean profile at its periodic form.
+
+    Below the deepest node whose temperature touched the freezing range during
+    the year, the ground stays in one phase with constant properties, so in
+    the periodic state its annual-mean temperature is linear in depth with the
+    slope q / k of the bottom heat flux (zero mean flux divergence). Slow drift
+    of that deep mean is what makes spin-up take decades; this shifts each deep
+    node by (target mean - current mean) and recomputes its enthalpy. The
+    shallow part is left to the time stepping. Used between spin-up years only.
+    """
+    nz = z.shape[0]
+    kf = par[0, s]
+    ku = kf + par[1, s]
+    cf = par[2, s]
+    cu = cf + par[3, s]
+    lv = par[6, s]
+    qb = par[8, s]
+    dtr = t_hi - t_lo
+    p = 0
+    for i in range(nz - 1, 0, -1):
+        if tmn[i, s] < t_hi and tmx[i, s] > t_lo:
+            p = i
+            break
+    target = tsum[p, s] / nsteps
+    k_prev = ku if tmn[p, s] >= t_hi else kf
+    for i in range(p + 1, nz):
+        k_i = ku if tmn[i, s] >= t_hi else kf
+        k_face = 2.0 * k_prev * k_i / (k_prev + k_i)
+        target += qb * (z[i] - z[i - 1]) / k_face
+        k_prev = k_i
+        tt = T[i, s] + (target - tsum[i, s] / nsteps)
+        T[i, s] = tt
+        phi = min(max((tt - t_lo) / dtr, 0.0), 1.0)
+        H[i, s] = (
+            cf * min(tt - t_lo, 0.0)
+            + phi * (dtr * (cf + 0.5 * (cu - cf) * phi) + lv)
+            + cu * max(tt - t_hi, 0.0)
+        )
+
+
 @njit(cache=True, nogil=True, fastmath=_FASTMATH, error_model="numpy")
 def _freeze_thaw_kernel(
-    ts, ku_a, kf_a, cu_a, cf_a, lv_a, qb_a, z, t_init, t_lo, t_hi, dt_s, dt_days,
-    spy, n_years, max_spin, spin_tol, out_idx, out_w, record, block,
-    frost_y, thaw_y, peren_y, fdays_y, frost_a, thaw_a, peren_a, fdays_a,
-    tmin_o, tmax_o, spin_n, spin_ok, prof_start, prof_end, heat_in, bad_out, iter_out, series,
+    ts,
+    ku_a,
+    kf_a,
+    cu_a,
+    cf_a,
+    lv_a,
+    qb_a,
+    z,
+    t_init,
+    t_lo,
+    t_hi,
+    dt_s,
+    dt_days,
+    spy,
+    n_years,
+    max_spin,
+    spin_tol,
+    k_first,
+    accelerate,
+    out_idx,
+    out_w,
+    record,
+    block,
+    frost_y,
+    thaw_y,
+    peren_y,
+    fdays_y,
+    frost_a,
+    thaw_a,
+    peren_a,
+    fdays_a,
+    tmin_o,
+    tmax_o,
+    spin_n,
+    spin_ok,
+    prof_start,
+    prof_end,
+    heat_in,
+    bad_out,
+    iter_out,
+    series,
 ):  # pragma: no cover - compiled
     nz = z.shape[0]
     nl = nz - 1  # index of the bottom node; unknowns are nodes 1..nl
@@ -462,19 +608,22 @@ def _freeze_thaw_kernel(
     bad = np.zeros(nb, dtype=np.int64)
     iters = np.zeros(nb, dtype=np.int64)
     sflag = np.zeros(nb, dtype=np.int64)
-    kf = np.ones(nb)
-    dk = np.zeros(nb)  # ku - kf
-    cf = np.ones(nb)
-    dc = np.zeros(nb)  # cu - cf
-    icf = np.ones(nb)
-    icu = np.ones(nb)
-    lv = np.zeros(nb)
-    lvd = np.zeros(nb)  # lv / dtr
-    qb = np.zeros(nb)
-    hhi = np.zeros(nb)
-    qa = np.zeros(nb)  # quadratic coefficient of H(phi)
-    qbb = np.ones(nb)  # linear coefficient of H(phi)
+    done = np.zeros(nb, dtype=np.bool_)  # converged in this time step
+    qsurf = np.zeros(nb)  # surface heat flux of the accepted iterate
+    par = np.ones((12, nb))  # per-slot constants, filled by _load_slot
+    kf = par[0]
+    dk = par[1]  # ku - kf
+    cf = par[2]
+    dc = par[3]  # cu - cf
+    icf = par[4]  # 1 / cf
+    icu = par[5]  # 1 / cu
+    lvd = par[7]  # lv / (T_f2 - T_f1)
+    qb = par[8]
+    hhi = par[9]  # enthalpy at T_f2
+    qa = par[10]  # quadratic coefficient of H(phi) in the freezing range
+    qbb = par[11]  # linear coefficient of H(phi) in the freezing range
     gl = np.zeros(nb)
+    g0 = np.zeros(nb)  # surface conductance of the last linear solve
     # per-slot profiles and statistics
     T = np.zeros((nz, nb))
     H = np.zeros((nz, nb))
@@ -489,6 +638,7 @@ def _freeze_thaw_kernel(
     tmx = np.zeros((nz, nb))
     tmn_a = np.zeros((nz, nb))
     tmx_a = np.zeros((nz, nb))
+    tsum = np.zeros((nz, nb))  # sum of T over the current pass (annual means)
     fdays = np.zeros((n_out, nb))
     tmin_c = np.zeros((n_out, nb))
     tmax_c = np.zeros((n_out, nb))
@@ -496,49 +646,41 @@ def _freeze_thaw_kernel(
     next_cell = 0
     n_active = 0
     for s in range(nb):
-        # load cell next_cell into slot s (same code as the refill below)
         c = next_cell
         next_cell += 1
         cell[s] = c
         active[s] = True
         n_active += 1
-        kstep[s] = 0
+        kstep[s] = k_first[c]
         offset[s] = 0
         year[s] = 0
-        nspin[s] = 0
+        nspin[s] = -1 if k_first[c] > 0 else 0  # -1: part-year pre-pass
         heat[s] = 0.0
         bad[s] = 0
         iters[s] = 0
-        kf[s] = kf_a[c]
-        dk[s] = ku_a[c] - kf_a[c]
-        cf[s] = cf_a[c]
-        dc[s] = cu_a[c] - cf_a[c]
-        icf[s] = 1.0 / cf_a[c]
-        icu[s] = 1.0 / cu_a[c]
-        lv[s] = lv_a[c]
-        lvd[s] = lv_a[c] * inv_dtr
-        qb[s] = qb_a[c]
-        hhi[s] = dtr * 0.5 * (cf_a[c] + cu_a[c]) + lv_a[c]
-        qa[s] = 0.5 * (cu_a[c] - cf_a[c]) * dtr
-        qbb[s] = cf_a[c] * dtr + lv_a[c]
-        for i in range(nz):
-            tt = t_init[i, c]
-            T[i, s] = tt
-            t_start[i, s] = tt
-            phi = min(max((tt - t_lo) * inv_dtr, 0.0), 1.0)
-            H[i, s] = (
-                cf[s] * min(tt - t_lo, 0.0)
-                + phi * (dtr * (cf[s] + 0.5 * dc[s] * phi) + lv[s])
-                + (cf[s] + dc[s]) * max(tt - t_hi, 0.0)
-            )
-            tmn[i, s] = np.inf
-            tmx[i, s] = -np.inf
-        for j in range(n_out):
-            fdays[j, s] = 0.0
-            tmin_c[j, s] = np.inf
-            tmax_c[j, s] = -np.inf
-        if next_cell >= n_cells:
-            break
+        _load_slot(
+            s,
+            c,
+            par,
+            ku_a,
+            kf_a,
+            cu_a,
+            cf_a,
+            lv_a,
+            qb_a,
+            t_init,
+            t_lo,
+            t_hi,
+            T,
+            H,
+            t_start,
+            tmn,
+            tmx,
+            tsum,
+            fdays,
+            tmin_c,
+            tmax_c,
+        )
 
     while n_active > 0:
         # ---- one implicit time step for all slots
@@ -564,6 +706,7 @@ def _freeze_thaw_kernel(
                 k0 = K[0, s]
                 k1 = K[1, s]
                 gl[s] = 2.0 * k0 * k1 / (k0 + k1) * rdz[1]
+                g0[s] = gl[s]
             for s in range(nb):
                 k1 = K[1, s]
                 k2 = K[2, s]
@@ -599,7 +742,9 @@ def _freeze_thaw_kernel(
             for i in range(nl - 1, 0, -1):
                 for s in range(nb):
                     x[i, s] = dp[i, s] - cp[i, s] * x[i + 1, s]
-            # Swaminathan & Voller (1992): H from the linearisation, then T = T(H)
+            # Swaminathan & Voller (1992): H from the linearisation, then T = T(H).
+            # Slots that converged in an earlier iteration keep their state, so a
+            # cell's result does not depend on the other cells of its block.
             for s in range(nb):
                 sflag[s] = 0
             for i in range(1, nz):
@@ -617,29 +762,36 @@ def _freeze_thaw_kernel(
                     off = (abs(t_new - x[i, s]) > _TOL_T_K) or (
                         abs(k_new - K[i, s]) > _TOL_K_REL * K[i, s]
                     )
-                    sflag[s] += 1 if off else 0
-                    H[i, s] = h_new
-                    T[i, s] = t_new
+                    if not done[s]:
+                        sflag[s] += 1 if off else 0
+                        H[i, s] = h_new
+                        T[i, s] = t_new
             n_off = 0
             for s in range(nb):
-                iters[s] += 1
-                if active[s] and sflag[s] > 0:
-                    n_off += 1
+                if not done[s]:
+                    iters[s] += 1
+                    # surface flux of this linear solve: with the enthalpy update it
+                    # balances the change of column enthalpy exactly (telescoping)
+                    qsurf[s] = g0[s] * (T[0, s] - x[1, s])
+                    if sflag[s] == 0:
+                        done[s] = True
+                    elif active[s]:
+                        n_off += 1
             if n_off == 0:
                 break
         for s in range(nb):
-            if sflag[s] > 0:
+            if not done[s]:
                 bad[s] += 1
+            done[s] = False
         # ---- bookkeeping: heat balance, envelopes, output depths
         for s in range(nb):
-            k0 = K[0, s]
-            k1 = kf[s] + dk[s] * min(max((T[1, s] - t_lo) * inv_dtr, 0.0), 1.0)
-            heat[s] += (2.0 * k0 * k1 / (k0 + k1) * rdz[1] * (T[0, s] - T[1, s]) + qb[s]) * dt_s
+            heat[s] += (qsurf[s] + qb[s]) * dt_s
         for i in range(nz):
             for s in range(nb):
                 tt = T[i, s]
                 tmn[i, s] = min(tmn[i, s], tt)
                 tmx[i, s] = max(tmx[i, s], tt)
+                tsum[i, s] += tt
         for j in range(n_out):
             ii = out_idx[j]
             ww = out_w[j]
@@ -664,20 +816,23 @@ def _freeze_thaw_kernel(
                 change = 0.0
                 for i in range(1, nz):
                     change = max(change, abs(T[i, s] - t_start[i, s]))
-                conv = change < spin_tol
-                if conv or nspin[s] >= max_spin:
+                conv = change < spin_tol and nspin[s] >= 0
+                if nspin[s] >= 0 and (conv or nspin[s] >= max_spin):
                     spin_n[c] = nspin[s]
                     spin_ok[c] = conv
                     for i in range(nz):
                         prof_start[i, c] = t_start[i, s]
                     year[s] = 1  # year 1 done; record it below
                 else:
+                    if nspin[s] >= 0 and accelerate:
+                        _deep_mean_correction(s, T, H, tsum, tmn, tmx, z, spy, t_lo, t_hi, par)
                     nspin[s] += 1
                     heat[s] = 0.0
                     for i in range(nz):
                         t_start[i, s] = T[i, s]
                         tmn[i, s] = np.inf
                         tmx[i, s] = -np.inf
+                        tsum[i, s] = 0.0
                     for j in range(n_out):
                         fdays[j, s] = 0.0
                         tmin_c[j, s] = np.inf
@@ -730,41 +885,36 @@ def _freeze_thaw_kernel(
             c = next_cell
             next_cell += 1
             cell[s] = c
-            kstep[s] = 0
+            kstep[s] = k_first[c]
             offset[s] = 0
             year[s] = 0
-            nspin[s] = 0
+            nspin[s] = -1 if k_first[c] > 0 else 0
             heat[s] = 0.0
             bad[s] = 0
             iters[s] = 0
-            kf[s] = kf_a[c]
-            dk[s] = ku_a[c] - kf_a[c]
-            cf[s] = cf_a[c]
-            dc[s] = cu_a[c] - cf_a[c]
-            icf[s] = 1.0 / cf_a[c]
-            icu[s] = 1.0 / cu_a[c]
-            lv[s] = lv_a[c]
-            lvd[s] = lv_a[c] * inv_dtr
-            qb[s] = qb_a[c]
-            hhi[s] = dtr * 0.5 * (cf_a[c] + cu_a[c]) + lv_a[c]
-            qa[s] = 0.5 * (cu_a[c] - cf_a[c]) * dtr
-            qbb[s] = cf_a[c] * dtr + lv_a[c]
-            for i in range(nz):
-                tt = t_init[i, c]
-                T[i, s] = tt
-                t_start[i, s] = tt
-                phi = min(max((tt - t_lo) * inv_dtr, 0.0), 1.0)
-                H[i, s] = (
-                    cf[s] * min(tt - t_lo, 0.0)
-                    + phi * (dtr * (cf[s] + 0.5 * dc[s] * phi) + lv[s])
-                    + (cf[s] + dc[s]) * max(tt - t_hi, 0.0)
-                )
-                tmn[i, s] = np.inf
-                tmx[i, s] = -np.inf
-            for j in range(n_out):
-                fdays[j, s] = 0.0
-                tmin_c[j, s] = np.inf
-                tmax_c[j, s] = -np.inf
+            _load_slot(
+                s,
+                c,
+                par,
+                ku_a,
+                kf_a,
+                cu_a,
+                cf_a,
+                lv_a,
+                qb_a,
+                t_init,
+                t_lo,
+                t_hi,
+                T,
+                H,
+                t_start,
+                tmn,
+                tmx,
+                tsum,
+                fdays,
+                tmin_c,
+                tmax_c,
+            )
 
 
 # ---------------------------------------------------------------------- wrappers
@@ -852,13 +1002,18 @@ class FreezeThawRun(NamedTuple):
     unconverged_steps: np.ndarray
 
 
+def _kernel_array(a, dtype=np.float64) -> np.ndarray:
+    """C-contiguous, writable array of one dtype: one compiled kernel signature."""
+    return np.require(a, dtype=dtype, requirements=["C_CONTIGUOUS", "WRITEABLE", "ALIGNED"])
+
+
 def _as_cells(a, cells: tuple[int, ...], name: str) -> np.ndarray:
     arr = np.asarray(a, dtype=np.float64)
     try:
         arr = np.broadcast_to(arr, cells)
     except ValueError as err:
         raise ValueError(f"{name} of shape {arr.shape} does not fit the cells {cells}") from err
-    return np.ascontiguousarray(arr.reshape(-1))
+    return _kernel_array(arr.reshape(-1))
 
 
 def _output_interp(depths_out_m, z: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -879,12 +1034,31 @@ def _check_range(freezing_range_degC: Sequence[float]) -> tuple[float, float]:
     return t_lo, t_hi
 
 
-_BLOCK = 16  # cells advanced together by the kernel (tuned in benchmarks/bench_freezethaw.py)
+_BLOCK = 32  # cells advanced together by the kernel (tuned in benchmarks/bench_freezethaw.py)
 
 
 def _run(
-    ts, ku, kf, cu, cf, water, qb, z, t_init, t_lo, t_hi, dt_days, spy, n_years,
-    max_spin, spin_tol, idx, w, record,
+    ts,
+    ku,
+    kf,
+    cu,
+    cf,
+    water,
+    qb,
+    z,
+    t_init,
+    t_lo,
+    t_hi,
+    dt_days,
+    spy,
+    n_years,
+    max_spin,
+    spin_tol,
+    k_first,
+    idx,
+    w,
+    record,
+    accelerate=True,
 ):
     """Run the kernel on the valid cells; invalid cells (NaN or non-physical) get NaN."""
     n = ts.shape[1]
@@ -892,16 +1066,26 @@ def _run(
     d = idx.size
     lv = water * (WATER_DENSITY_KG_M3 * LATENT_HEAT_FUSION_J_KG)
     valid = (
-        (ku > 0) & (kf > 0) & (cu > 0) & (cf > 0) & (water >= 0) & np.isfinite(qb)
-        & np.isfinite(ku) & np.isfinite(kf) & np.isfinite(cu) & np.isfinite(cf)
-        & np.isfinite(lv) & np.all(np.isfinite(ts), axis=0) & np.all(np.isfinite(t_init), axis=0)
+        (ku > 0)
+        & (kf > 0)
+        & (cu > 0)
+        & (cf > 0)
+        & (water >= 0)
+        & np.isfinite(qb)
+        & np.isfinite(ku)
+        & np.isfinite(kf)
+        & np.isfinite(cu)
+        & np.isfinite(cf)
+        & np.isfinite(lv)
+        & np.all(np.isfinite(ts), axis=0)
+        & np.all(np.isfinite(t_init), axis=0)
     )
     all_valid = bool(valid.all())
     sel = slice(None) if all_valid else np.flatnonzero(valid)
     m = n if all_valid else int(valid.sum())
 
     def pick(a):
-        return a if all_valid else np.ascontiguousarray(a[..., sel])
+        return a if all_valid else _kernel_array(a[..., sel])
 
     shapes = {
         "frost_y": ((n_years, m), np.float64),
@@ -925,13 +1109,47 @@ def _run(
     }
     out = {k: np.zeros(shape, dtype=dt) for k, (shape, dt) in shapes.items()}
     _freeze_thaw_kernel(
-        pick(ts), pick(ku), pick(kf), pick(cu), pick(cf), pick(lv), pick(qb), z, pick(t_init),
-        t_lo, t_hi, dt_days * SECONDS_PER_DAY, dt_days, spy, n_years, max_spin, spin_tol,
-        idx, w, record, _BLOCK,
-        out["frost_y"], out["thaw_y"], out["peren_y"], out["fdays_y"], out["frost_a"],
-        out["thaw_a"], out["peren_a"], out["fdays_a"], out["tmin_o"], out["tmax_o"],
-        out["spin_n"], out["spin_ok"], out["prof_start"], out["prof_end"], out["heat_in"],
-        out["bad"], out["iters"], out["series"],
+        pick(ts),
+        pick(ku),
+        pick(kf),
+        pick(cu),
+        pick(cf),
+        pick(lv),
+        pick(qb),
+        z,
+        pick(t_init),
+        t_lo,
+        t_hi,
+        dt_days * SECONDS_PER_DAY,
+        dt_days,
+        spy,
+        n_years,
+        max_spin,
+        spin_tol,
+        pick(k_first),
+        accelerate,
+        idx,
+        w,
+        record,
+        _BLOCK,
+        out["frost_y"],
+        out["thaw_y"],
+        out["peren_y"],
+        out["fdays_y"],
+        out["frost_a"],
+        out["thaw_a"],
+        out["peren_a"],
+        out["fdays_a"],
+        out["tmin_o"],
+        out["tmax_o"],
+        out["spin_n"],
+        out["spin_ok"],
+        out["prof_start"],
+        out["prof_end"],
+        out["heat_in"],
+        out["bad"],
+        out["iters"],
+        out["series"],
     )
     if all_valid:
         return out
@@ -948,7 +1166,14 @@ def _run(
 
 
 def _prepare(
-    surface_temperature_degC, ku, kf, cu, cf, water, qb, dt_days,
+    surface_temperature_degC,
+    ku,
+    kf,
+    cu,
+    cf,
+    water,
+    qb,
+    dt_days,
 ) -> tuple[np.ndarray, tuple[int, ...], list[np.ndarray]]:
     ts = np.asarray(surface_temperature_degC, dtype=np.float64)
     if ts.ndim < 1 or ts.shape[0] < 1:
@@ -956,7 +1181,7 @@ def _prepare(
     if not dt_days > 0:
         raise ValueError("dt_days must be positive")
     cells = ts.shape[1:]
-    ts2 = np.ascontiguousarray(ts.reshape(ts.shape[0], -1))
+    ts2 = _kernel_array(ts.reshape(ts.shape[0], -1))
     props = [
         _as_cells(ku, cells, "conductivity_unfrozen_w_mk"),
         _as_cells(kf, cells, "conductivity_frozen_w_mk"),
@@ -968,31 +1193,53 @@ def _prepare(
     return ts2, cells, props
 
 
-def _initial_profile(initial_profile_degC, ts2, cells, z, ku, cu, qb, spy) -> np.ndarray:
+# The analytic start is taken in the warm season, when the no-latent-heat
+# profile holds the least ice: a quarter of a radian of the annual wave after
+# the surface maximum (about 15 d; the subsurface maximum lags 58 d per damping
+# depth). A numerical choice that shortens spin-up; the result does not depend
+# on it once spun up.
+_WARM_START_LAG_RAD = 0.25
+
+
+def _initial_profile(
+    initial_profile_degC, ts2, cells, z, ku, cu, qb, spy, dt_days
+) -> tuple[np.ndarray, np.ndarray]:
+    """Initial profiles (nz, n) and the step index each cell starts at."""
     n = ts2.shape[1]
-    if initial_profile_degC is None:
-        mean, cos_c, sin_c = _fit_harmonics(ts2[:spy], n_harmonics=3)
-        damping = np.sqrt(2.0 * (ku / cu) / (2.0 * np.pi / (DAYS_PER_YEAR * SECONDS_PER_DAY)))
-        prof = periodic_initial_profile(
-            mean, cos_c, sin_c, damping, z, bottom_heat_flux_w_m2=qb, conductivity_w_mk=ku
-        )
-    elif isinstance(initial_profile_degC, tuple | list):
-        parts = list(initial_profile_degC)
-        if len(parts) not in (3, 4):
-            raise ValueError(
-                "initial_profile_degC as a tuple is (mean, cos_coef, sin_coef[, damping_depth_m])"
-            )
-        mean = _as_cells(parts[0], cells, "initial mean")
-        cos_c = np.asarray(parts[1], dtype=np.float64)
-        sin_c = np.asarray(parts[2], dtype=np.float64)
-        cos_c = cos_c.reshape(cos_c.shape[0], -1) if cells else cos_c.reshape(cos_c.shape[0], 1)
-        sin_c = sin_c.reshape(sin_c.shape[0], -1) if cells else sin_c.reshape(sin_c.shape[0], 1)
-        if len(parts) == 4:
-            damping = _as_cells(parts[3], cells, "initial damping_depth_m")
+    damping = np.sqrt(2.0 * (ku / cu) / (2.0 * np.pi / (DAYS_PER_YEAR * SECONDS_PER_DAY)))
+    if initial_profile_degC is None or isinstance(initial_profile_degC, tuple | list):
+        if initial_profile_degC is None:
+            mean, cos_c, sin_c = _fit_harmonics(ts2[:spy], n_harmonics=3)
         else:
-            damping = np.sqrt(2.0 * (ku / cu) / (2.0 * np.pi / (DAYS_PER_YEAR * SECONDS_PER_DAY)))
+            parts = list(initial_profile_degC)
+            if len(parts) not in (3, 4):
+                raise ValueError(
+                    "initial_profile_degC as a tuple is "
+                    "(mean, cos_coef, sin_coef[, damping_depth_m])"
+                )
+            mean = _as_cells(parts[0], cells, "initial mean")
+            cos_c = np.asarray(parts[1], dtype=np.float64).reshape(len(parts[1]), -1)
+            sin_c = np.asarray(parts[2], dtype=np.float64).reshape(len(parts[2]), -1)
+            if len(parts) == 4:
+                damping = _as_cells(parts[3], cells, "initial damping_depth_m")
+        omega = 2.0 * np.pi / DAYS_PER_YEAR
+        if cos_c.shape[0] > 0:
+            phase = np.arctan2(sin_c[0], cos_c[0]) + _WARM_START_LAG_RAD
+            t_warm = np.mod(phase / omega, DAYS_PER_YEAR)
+            t_warm = np.nan_to_num(t_warm)  # NaN cells are skipped by the kernel
+            k_first = np.round(t_warm / dt_days).astype(np.int64) % spy
+            k_first = np.broadcast_to(k_first, (n,)).copy()
+        else:
+            k_first = np.zeros(n, dtype=np.int64)
         prof = periodic_initial_profile(
-            mean, cos_c, sin_c, damping, z, bottom_heat_flux_w_m2=qb, conductivity_w_mk=ku
+            mean,
+            cos_c,
+            sin_c,
+            damping,
+            z,
+            t_days=k_first * dt_days,
+            bottom_heat_flux_w_m2=qb,
+            conductivity_w_mk=ku,
         )
     else:
         prof = np.asarray(initial_profile_degC, dtype=np.float64)
@@ -1001,7 +1248,9 @@ def _initial_profile(initial_profile_degC, ts2, cells, z, ku, cu, qb, spy) -> np
                 f"initial_profile_degC has {prof.shape[0]} depths, the grid has {z.size}"
             )
         prof = np.broadcast_to(prof.reshape(z.size, -1), (z.size, n))
-    return np.ascontiguousarray(np.broadcast_to(prof, (z.size, n)), dtype=np.float64)
+        k_first = np.zeros(n, dtype=np.int64)
+    prof = _kernel_array(np.broadcast_to(prof, (z.size, n)))
+    return prof, _kernel_array(k_first, np.int64)
 
 
 def solve_freeze_thaw(
@@ -1102,16 +1351,36 @@ def solve_freeze_thaw(
             "other lengths)"
         )
     n_years = nsteps // spy
-    z = depth_grid() if grid_m is None else np.ascontiguousarray(grid_m, dtype=np.float64)
+    z = _kernel_array(depth_grid() if grid_m is None else grid_m)
     if z.ndim != 1 or z.size < 3 or z[0] != 0.0 or np.any(np.diff(z) <= 0):
         raise ValueError("grid_m must start at 0 and increase strictly, with >= 3 nodes")
     d, idx, w = _output_interp(depths_out_m, z)
-    t_init = _initial_profile(initial_profile_degC, ts2, cells, z, ku, cu, qb, spy)
+    t_init, k_first = _initial_profile(
+        initial_profile_degC, ts2, cells, z, ku, cu, qb, spy, dt_days
+    )
     if max_spinup_years < 0:
         raise ValueError("max_spinup_years must be >= 0")
     o = _run(
-        ts2, ku, kf, cu, cf, water, qb, z, t_init, t_lo, t_hi, float(dt_days), spy, n_years,
-        int(max_spinup_years), float(spinup_tolerance_K), idx, w, False,
+        ts2,
+        ku,
+        kf,
+        cu,
+        cf,
+        water,
+        qb,
+        z,
+        t_init,
+        t_lo,
+        t_hi,
+        float(dt_days),
+        spy,
+        n_years,
+        int(max_spinup_years),
+        float(spinup_tolerance_K),
+        k_first,
+        idx,
+        w,
+        False,
     )
     nd = d.size
     return FreezeThawResult(
@@ -1192,15 +1461,35 @@ def integrate_freeze_thaw(
         bottom_heat_flux_w_m2,
         dt_days,
     )
-    z = np.ascontiguousarray(grid_m, dtype=np.float64)
+    z = _kernel_array(grid_m)
     if z.ndim != 1 or z.size < 3 or z[0] != 0.0 or np.any(np.diff(z) <= 0):
         raise ValueError("grid_m must start at 0 and increase strictly, with >= 3 nodes")
     d, idx, w = _output_interp(depths_out_m, z)
-    t_init = _initial_profile(np.asarray(initial_profile_degC), ts2, cells, z, ku, cu, qb, 1)
+    t_init, k_first = _initial_profile(
+        np.asarray(initial_profile_degC), ts2, cells, z, ku, cu, qb, 1, dt_days
+    )
     nsteps = ts2.shape[0]
     o = _run(
-        ts2, ku, kf, cu, cf, water, qb, z, t_init, t_lo, t_hi, float(dt_days), nsteps, 1,
-        0, np.inf, idx, w, True,
+        ts2,
+        ku,
+        kf,
+        cu,
+        cf,
+        water,
+        qb,
+        z,
+        t_init,
+        t_lo,
+        t_hi,
+        float(dt_days),
+        nsteps,
+        1,
+        0,
+        np.inf,
+        k_first,
+        idx,
+        w,
+        True,
     )
     return FreezeThawRun(
         temperature_degC=o["series"].reshape((nsteps, d.size) + cells),
