@@ -206,3 +206,88 @@ def test_frost_class_codes_and_legend():
     colours = [legend[c][1] for c in sorted(legend)]
     assert all(len(c) == 7 and c.startswith("#") for c in colours)
     assert len(set(colours)) == len(colours)
+
+
+# ------------------------------------------------ Neumann roots and further checks
+
+
+@pytest.mark.parametrize(
+    ("stefan", "xi"),
+    # One-phase Stefan problem, root of xi exp(xi^2) erf(xi) = St / sqrt(pi): the classic
+    # table (Carslaw & Jaeger 1959 Sec. 11.2; Alexiades & Solomon 1993 Table 2.1), values
+    # from memory, confirmed below by an independent brentq root.
+    [(0.1, 0.2200), (0.5, 0.4648), (1.0, 0.6201)],
+)
+def test_neumann_one_phase_table(stefan, xi):
+    got = float(fr.neumann_front_coefficient(0.0, stefan))
+    # table printed to 4 decimals
+    assert got == pytest.approx(xi, abs=1e-4)
+    ref = brentq(lambda x: x * np.exp(x * x) * erf(x) - stefan / np.sqrt(np.pi), 1e-6, 5.0)
+    assert got == pytest.approx(ref, rel=1e-10)  # bisection to machine precision
+
+
+@pytest.mark.parametrize("alpha", [0.2, 1.0, 3.0])
+@pytest.mark.parametrize("mu", [0.05, 0.5, 2.0])
+def test_neumann_two_phase_independent_root(alpha, mu):
+    # Equal-property two-phase Neumann condition (Carslaw & Jaeger 1959 Sec. 11.2), root
+    # by scipy brentq, written out here independently of the package
+    def g(x):
+        return np.exp(-x * x) * (1.0 / erf(x) - alpha / erfc(x)) - np.sqrt(np.pi) * x / mu
+
+    ref = brentq(g, 1e-9, 6.0, xtol=1e-14)
+    assert float(fr.neumann_front_coefficient(alpha, mu)) == pytest.approx(ref, rel=1e-9)
+
+
+def test_berggren_equals_neumann_front():
+    # For a step freezing season the modified Berggren depth is the equal-property Neumann
+    # front 2 xi sqrt(a t) (Carslaw & Jaeger 1959 Sec. 11.2), independent root by brentq
+    k, c, theta, t_days, vs, v0 = 1.6, 2.2e6, 0.25, 120.0, 8.0, 4.0
+    lat = theta * L_WATER
+    mu, alpha = c * vs / lat, v0 / vs
+
+    def g(x):
+        return np.exp(-x * x) * (1.0 / erf(x) - alpha / erfc(x)) - np.sqrt(np.pi) * x / mu
+
+    xi = brentq(g, 1e-9, 6.0, xtol=1e-14)
+    exact = 2.0 * xi * np.sqrt(k / c * t_days * 86400.0)
+    got = fr.berggren_frost_depth(vs * t_days, t_days, v0, k, k, c, c, theta)
+    assert float(got) == pytest.approx(exact, rel=1e-9)
+    # and it is below the Stefan estimate (sensible heat slows the front)
+    assert float(got) < float(fr.stefan_frost_depth(vs * t_days, k, theta))
+
+
+def test_freezing_index_of_a_sinusoid():
+    # Degree-days below 0 of m + A cos(w t): independent scipy quadrature; the daily sum
+    # is a midpoint rule, 1e-3 relative covers it
+    m, a = -1.0, 10.0
+    t = np.arange(365) + 0.5
+    temp = m + a * np.cos(2 * np.pi * t / 365.0)
+    fi, days = fr.freezing_index_per_winter(temp[:, None], 365)
+    ref, _ = quad(lambda x: max(0.0, -(m + a * np.cos(2 * np.pi * x / 365.0))), 0, 365,
+                  limit=200)
+    assert fi[0, 0] == pytest.approx(ref, rel=1e-3)
+    # days below 0: 365 (1 - arccos(-m/a) / pi), within one day of sampling
+    assert days[0, 0] == pytest.approx(365 * (1 - np.arccos(-m / a) / np.pi), abs=1.0)
+
+
+@settings(max_examples=40, deadline=None)
+@given(
+    fi=st.floats(10.0, 3000.0),
+    k=st.floats(0.3, 3.0),
+    theta=st.floats(0.05, 0.5),
+    mat=st.floats(0.0, 12.0),
+    days=st.floats(30.0, 200.0),
+)
+def test_closed_forms_monotone(fi, k, theta, mat, days):
+    # Invariants of both equations (Stefan 1891; Aldrich & Paynter 1953): more latent heat
+    # to remove -> shallower frost; larger freezing index -> deeper frost
+    c = 2.0e6
+    s1 = fr.stefan_frost_depth(fi, k, theta)
+    s2 = fr.stefan_frost_depth(fi, k, theta * 1.2)
+    s3 = fr.stefan_frost_depth(fi * 1.2, k, theta)
+    assert s2 < s1 < s3
+    b1 = fr.berggren_frost_depth(fi, days, mat, k, k, c, c, theta)
+    b2 = fr.berggren_frost_depth(fi, days, mat, k, k, c, c, theta * 1.2)
+    b3 = fr.berggren_frost_depth(fi * 1.2, days, mat, k, k, c, c, theta)
+    assert b2 < b1 < b3
+    assert b1 <= s1 * (1 + 1e-12)
