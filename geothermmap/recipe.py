@@ -167,7 +167,7 @@ class RootZoneSpec(_Strict):
 
 class ThresholdSpec(_Strict):
     depth: float = Field(0.1, ge=0.0)
-    values: list[float] = Field(default_factory=lambda: [5.0, 10.0])
+    values: list[float] = Field(default_factory=lambda: [5.0, 10.0], min_length=1)
     degree_day_base: float = 5.0
 
 
