@@ -212,7 +212,9 @@ def tags(config: KernelConfig) -> dict[str, dict[str, str]]:
                "calendar years")
     return {
         "frost_class": cls,
-        "frost_depth_latent": {"method": num + "; maximum over the record", "surface": surface},
+        "frost_depth_latent": {"method": num + "; maximum over the record", "surface": surface,
+                               "perennially_frozen_cells": "base of the frozen ground, or the "
+                               "solver grid bottom when deeper; see thaw_depth there"},
         "thaw_depth": {"method": num},
         "frozen_days": {"method": num + "; mean days per year below the upper freezing bound"},
         "t_min_latent": {"method": num},

@@ -121,3 +121,66 @@ def test_multi_year_design_outputs(tmp_path):
     # the colder winter (band 2) freezes more than the mild one (band 1)
     cold = fi[1] > 0
     assert np.all(fi[1][cold] >= fi[0][cold]) and np.all(winters[1] >= winters[0] - 1e-6)
+
+
+def _block_inputs(n_months: int = 12, air: bool = False) -> dict[str, np.ndarray]:
+    """Invented block: 6 x 8 cells from warm (no frost) to cold (frozen at depth)."""
+    rows, cols = 6, 8
+    yy, xx = np.mgrid[0:rows, 0:cols]
+    mean = 12.5 - 2.2 * xx - 0.3 * yy
+    mid = (np.arange(n_months) + 0.5) * 365.25 / 12
+    t = mean[None] - 11.0 * np.cos(2 * np.pi * (mid - 15.0) / 365.25)[:, None, None]
+    t = t + 0.5 * np.sin(np.arange(n_months) * 0.7)[:, None, None]  # year-to-year noise
+    inputs = {
+        "surface_temperature": t.astype(np.float32),
+        "sand": np.full((1, rows, cols), 0.4, np.float32),
+        "clay": np.full((1, rows, cols), 0.2, np.float32),
+        "water_content": (0.1 + 0.04 * yy[None]).astype(np.float32),
+        "bulk_density": np.full((1, rows, cols), 1450.0, np.float32),
+        "organic_matter": np.full((1, rows, cols), 0.02, np.float32),
+    }
+    if air:
+        inputs["n_factor_freezing"] = np.full((1, rows, cols), 0.6, np.float32)
+        inputs["n_factor_thawing"] = np.full((1, rows, cols), 1.2, np.float32)
+    return inputs
+
+
+def _config(n_years: int, kind: str = "ground"):
+    from geothermmap.kernel import KernelConfig
+    from geothermmap.outputs import OUTPUTS
+
+    names = tuple(n for n, o in OUTPUTS.items()
+                  if o.group == "freeze_thaw" or (n_years > 1 and o.group == "multi_year"))
+    return KernelConfig(outputs=names, depths_m=tuple(DEPTHS), extras={
+        "freeze_thaw": {"enabled": True, "freezing_range": (-1.0, 0.0),
+                        "bottom_heat_flux": 0.06, "years": "auto"},
+        "surface_kind": kind, "frost_classes": [0.5, 1.0, 1.5, 2.0], "n_years": n_years})
+
+
+@pytest.mark.parametrize("n_years", [1, 3])
+def test_block_split_equals_whole(n_years):
+    # chunked equals unchunked: a cell's result must not depend on the block around it
+    from geothermmap.kernel import compute_block
+
+    inputs = _block_inputs(12 * n_years)
+    cfg = _config(n_years)
+    whole = compute_block(inputs, cfg).outputs
+    left = compute_block({k: v[:, :, :3] for k, v in inputs.items()}, cfg).outputs
+    right = compute_block({k: v[:, :, 3:] for k, v in inputs.items()}, cfg).outputs
+    for name, arr in whole.items():
+        np.testing.assert_array_equal(arr, np.concatenate([left[name], right[name]], axis=2),
+                                      err_msg=name)
+    cls = whole["frost_class"][0]
+    assert {1, 7} <= set(np.unique(cls).tolist())  # warm and frozen-at-depth cells present
+
+
+def test_air_input_uses_n_factors():
+    # Lunardini (1978) definition: surface freezing index = n_f x air freezing index
+    from geothermmap.kernel import compute_block
+
+    ground = compute_block(_block_inputs(), _config(1)).outputs
+    air = compute_block(_block_inputs(air=True), _config(1, "air")).outputs
+    fi_g, fi_a = ground["freezing_index"][0], air["freezing_index"][0]
+    np.testing.assert_allclose(fi_a, 0.6 * fi_g, rtol=1e-5)  # float32 storage
+    cold = fi_g > 0
+    assert np.all(air["frost_depth_stefan"][0][cold] < ground["frost_depth_stefan"][0][cold])
