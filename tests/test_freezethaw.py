@@ -356,7 +356,7 @@ def test_input_errors():
 _SMALL_GRID = ft.depth_grid(10.0, 30, 0.02)
 
 
-@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(
     mean=st.floats(0.0, 8.0),
     amp=st.floats(6.0, 20.0),
@@ -382,11 +382,15 @@ def test_more_latent_heat_means_shallower_frost(mean, amp, k, kf_ratio, c):
         max_spinup_years=3,
         spinup_tolerance_K=0.0,  # same number of years for all cells
     )
+    # Seasonal frost only: where ground stays frozen at depth (possible with a
+    # positive surface mean through the thermal offset of k_f > k_u) the
+    # periodic state does not depend on the latent heat, only the way there.
+    seasonal = res.frost_depth_m[~res.perennially_frozen]
     # 1 mm: interpolation of the envelope between nodes
-    assert np.all(np.diff(res.frost_depth_m) <= 1e-3)
+    assert np.all(np.diff(seasonal) <= 1e-3)
 
 
-@settings(max_examples=12, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
 @given(amp=st.floats(6.0, 20.0), k=st.floats(0.8, 2.5), water=st.floats(0.05, 0.4))
 def test_frost_depth_grows_with_freezing_index(amp, k, water):
     # colder annual means at fixed amplitude -> larger freezing index -> deeper frost
@@ -407,4 +411,5 @@ def test_frost_depth_grows_with_freezing_index(amp, k, water):
         max_spinup_years=3,
         spinup_tolerance_K=0.0,
     )
-    assert np.all(np.diff(res.frost_depth_m) >= -1e-3)
+    seasonal = res.frost_depth_m[~res.perennially_frozen]  # as in the test above
+    assert np.all(np.diff(seasonal) >= -1e-3)

@@ -1202,9 +1202,27 @@ _WARM_START_LAG_RAD = 0.25
 
 
 def _initial_profile(
-    initial_profile_degC, ts2, cells, z, ku, cu, qb, spy, dt_days
+    initial_profile_degC,
+    ts2,
+    cells,
+    z,
+    ku,
+    cu,
+    qb,
+    spy,
+    dt_days,
+    t_lo,
+    t_hi,
+    phase_by_mean=True,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Initial profiles (nz, n) and the step index each cell starts at."""
+    """Initial profiles (nz, n) and the step index each cell starts at.
+
+    An analytic start (no latent heat) overstates frost and thaw penetration
+    and, taken literally, leaves seasonal ice (or thaw) at depth that melts
+    (freezes) only over decades in the zero curtain. Each node therefore starts
+    in the phase of its annual mean: ice-free (``T >= T_f2``) where the mean is
+    at or above ``T_f2``, fully frozen (``T <= T_f1``) elsewhere.
+    """
     n = ts2.shape[1]
     damping = np.sqrt(2.0 * (ku / cu) / (2.0 * np.pi / (DAYS_PER_YEAR * SECONDS_PER_DAY)))
     if initial_profile_degC is None or isinstance(initial_profile_degC, tuple | list):
@@ -1241,6 +1259,9 @@ def _initial_profile(
             bottom_heat_flux_w_m2=qb,
             conductivity_w_mk=ku,
         )
+        if phase_by_mean:
+            mean_prof = np.broadcast_to(mean, (n,))[None, :] + z[:, None] * (qb / ku)[None, :]
+            prof = np.where(mean_prof >= t_hi, np.maximum(prof, t_hi), np.minimum(prof, t_lo))
     else:
         prof = np.asarray(initial_profile_degC, dtype=np.float64)
         if prof.shape[0] != z.size:
@@ -1356,7 +1377,7 @@ def solve_freeze_thaw(
         raise ValueError("grid_m must start at 0 and increase strictly, with >= 3 nodes")
     d, idx, w = _output_interp(depths_out_m, z)
     t_init, k_first = _initial_profile(
-        initial_profile_degC, ts2, cells, z, ku, cu, qb, spy, dt_days
+        initial_profile_degC, ts2, cells, z, ku, cu, qb, spy, dt_days, t_lo, t_hi
     )
     if max_spinup_years < 0:
         raise ValueError("max_spinup_years must be >= 0")
@@ -1466,7 +1487,7 @@ def integrate_freeze_thaw(
         raise ValueError("grid_m must start at 0 and increase strictly, with >= 3 nodes")
     d, idx, w = _output_interp(depths_out_m, z)
     t_init, k_first = _initial_profile(
-        np.asarray(initial_profile_degC), ts2, cells, z, ku, cu, qb, 1, dt_days
+        np.asarray(initial_profile_degC), ts2, cells, z, ku, cu, qb, 1, dt_days, t_lo, t_hi
     )
     nsteps = ts2.shape[0]
     o = _run(
