@@ -49,7 +49,8 @@ pre { background: #f6f8fa; border: 1px solid #d0d7de; border-radius: 4px; paddin
       overflow-x: auto; font-size: 0.85em; }
 code { font-size: 0.9em; }
 figure { margin: 0.5em 0; }
-figure img { max-width: 100%; height: auto; border: 1px solid #e5e7eb; background: #fff; }
+figure img { max-width: min(100%, 1000px); height: auto; border: 1px solid #e5e7eb;
+             background: #fff; }
 .missing { color: #8b0000; }
 nav ul { columns: 3; font-size: 0.9em; }
 footer { margin-top: 3em; color: #666; font-size: 0.85em; }
@@ -65,7 +66,12 @@ def _num(value: Any) -> str:
         return _e(value)
     if isinstance(value, float) and not math.isfinite(value):
         return _e(value)
-    return _e(f"{value:.6g}" if isinstance(value, float) else f"{value:d}")
+    if isinstance(value, int):
+        return _e(f"{value:d}")
+    text = f"{value:.6g}"
+    if "e+" in text and abs(value) < 1e15:  # map coordinates: 5193000, not 5.193e+06
+        text = f"{value:.0f}"
+    return _e(text)
 
 
 def _table(header: Iterable[str], rows: Iterable[Iterable[str]], numeric: set[int] = frozenset()
@@ -149,8 +155,8 @@ def _section_caution(record: dict[str, Any]) -> str:
         return (f'<p class="sub">This run has no frost outputs. Frost and foundation outputs '
                 f"are screening estimates: {_e(caution)}</p>")
     names = ", ".join(f"<code>{_e(n)}</code>" for n in frost)
-    return (f'<div class="caution" role="note">CAUTION: the frost maps of this run are '
-            f"screening estimates. {_e(caution)}<small>Frost outputs: {names}</small></div>")
+    return (f'<div class="caution" role="note">CAUTION (frost maps of this run): '
+            f"{_e(caution)}<small>Frost outputs: {names}</small></div>")
 
 
 def _section_recipe(record: dict[str, Any]) -> str:
@@ -270,14 +276,15 @@ def render_html(record: dict[str, Any], pngs: dict[str, Path]) -> str:
         f"<code>{_e(record.get('run_key', ''))}</code></p>",
         _section_caution(record),
         f'<nav><ul><li><a href="#recipe">recipe</a></li><li><a href="#inputs">inputs</a></li>'
-        f'<li><a href="#counts">counts</a></li><li><a href="#notes">notes</a></li>'
+        f'<li><a href="#outputs">outputs</a></li><li><a href="#counts">counts</a></li>'
+        f'<li><a href="#notes">notes</a></li>'
         f'<li><a href="#versions">versions</a></li><li><a href="#timings">timings</a></li>'
         f"{toc}</ul></nav>",
         _section_recipe(record),
         _section_inputs(record),
+        _section_outputs(record, pngs),
         _section_counts(record),
         _section_notes(record),
-        _section_outputs(record, pngs),
         _kv_section("Versions", "versions", record.get("versions") or {}),
         _kv_section("Timings", "timings", {k.removesuffix("_s"): v for k, v in
                                            (record.get("timings") or {}).items()}, unit="s"),
