@@ -147,6 +147,8 @@ def read_run_outputs(output_dir: str | Path, names: list[str] | None = None
             labels = [band_label(ds.tags(b)) for b in range(1, ds.count + 1)]
             descriptions = [d or f"band {i + 1}" for i, d in enumerate(ds.descriptions)]
             legend = class_legend(ds.tags()) if ds.dtypes[0] == "uint8" else {}
+            if ds.nodata is not None:
+                legend.pop(int(ds.nodata), None)  # e.g. class_0 = nodata
             categorical = ds.dtypes[0] == "uint8" or entry.get("units") == "class"
         units = entry.get("units") or OUTPUTS.get(name, OUTPUTS["t_mean"]).units
         outputs.append(_Output(name, path, units, categorical, labels, descriptions, legend))
@@ -168,9 +170,9 @@ def band_label(tags: dict[str, str]) -> str:
 def class_legend(tags: dict[str, str]) -> dict[int, str]:
     """Class code -> label from a class map's tags (empty when there is no legend).
 
-    Accepted: a ``legend`` (or ``classes``) tag holding JSON ``{"1": "label", ...}`` or
-    text ``1=label; 2=label`` / ``1: label, 2: label``; or one tag per class,
-    ``class_1=label`` (also ``class1``, ``class_1_label``).
+    Accepted: one tag per class, ``class_1=label`` (as the frost-class map writes them;
+    also ``class1``, ``class_1_label``); or a ``legend`` (or ``classes``) tag holding
+    JSON ``{"1": "label", ...}`` or text ``1=label; 2=label`` / ``1: label, 2: label``.
     """
     for key in ("legend", "classes", "class_legend"):
         text = tags.get(key)
@@ -265,6 +267,16 @@ def _polygonal(geom):
         return geom
     parts = [p for p in shapely.get_parts(geom) if p.geom_type in ("Polygon", "MultiPolygon")]
     return shapely.union_all(parts) if parts else None
+
+
+def class_colours(tags: dict[str, str]) -> dict[int, str]:
+    """Class code -> colour from ``class_<code>_color`` tags (empty when there are none)."""
+    out = {}
+    for key, value in tags.items():
+        m = re.fullmatch(r"class_?(\d+)_colou?r", key, flags=re.IGNORECASE)
+        if m:
+            out[int(m.group(1))] = value
+    return out
 
 
 def parse_percentiles(text: str | Any) -> tuple[float, ...]:
