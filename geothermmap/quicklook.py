@@ -115,7 +115,7 @@ def _class_style(tags: dict[str, str], present: np.ndarray, nodata: float | None
         except ImportError:  # pragma: no cover - installation without the frost module
             pass
     codes = sorted(set(int(c) for c in present) | set(labels))
-    if nodata is not None:
+    if nodata is not None and math.isfinite(nodata):
         codes = [c for c in codes if c != int(nodata)]
     tab = matplotlib.colormaps["tab10"]
     return {c: (labels.get(c, f"class {c}"),

@@ -147,7 +147,7 @@ def read_run_outputs(output_dir: str | Path, names: list[str] | None = None
             labels = [band_label(ds.tags(b)) for b in range(1, ds.count + 1)]
             descriptions = [d or f"band {i + 1}" for i, d in enumerate(ds.descriptions)]
             legend = class_legend(ds.tags()) if ds.dtypes[0] == "uint8" else {}
-            if ds.nodata is not None:
+            if ds.nodata is not None and math.isfinite(ds.nodata):
                 legend.pop(int(ds.nodata), None)  # e.g. class_0 = nodata
             categorical = ds.dtypes[0] == "uint8" or entry.get("units") == "class"
         units = entry.get("units") or OUTPUTS.get(name, OUTPUTS["t_mean"]).units
