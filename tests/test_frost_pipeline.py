@@ -184,3 +184,23 @@ def test_air_input_uses_n_factors():
     np.testing.assert_allclose(fi_a, 0.6 * fi_g, rtol=1e-5)  # float32 storage
     cold = fi_g > 0
     assert np.all(air["frost_depth_stefan"][0][cold] < ground["frost_depth_stefan"][0][cold])
+
+
+def test_analytic_shortcut_matches_solver_for_warm_cells():
+    # Never-freezing cells take the periodic analytic solution (Carslaw & Jaeger 1959
+    # Sec. 2.6) plus the geothermal gradient q z / k; the numerical run of the same cells
+    # must agree. 0.05 K: backward-Euler damping of daily steps (0.02 K seen at 2 m).
+    from geothermmap.kernel_frost import _analytic_extremes
+
+    n, k, c, q = 3, 1.3, 2.4e6, 0.06
+    mean = np.array([8.0, 11.0, 14.0])
+    ts = freezethaw.daily_forcing_from_harmonics(
+        mean, np.full((2, n), [[-7.0], [0.5]]), np.full((2, n), [[-2.0], [0.3]]))
+    dt = 365.25 / 365
+    d1 = np.full(n, np.sqrt(2 * k / c / (2 * np.pi / (365.25 * 86400))))
+    r = freezethaw.solve_freeze_thaw(ts, k, 1.8, c, 1.9e6, 0.25, DEPTHS,
+                                     grid_m=solver_grid(DEPTHS), dt_days=dt,
+                                     bottom_heat_flux_w_m2=q)
+    lo, hi = _analytic_extremes(ts, d1, np.full(n, k), np.full(n, q), DEPTHS, dt)
+    np.testing.assert_allclose(r.t_min_degC, lo, atol=0.05)
+    np.testing.assert_allclose(r.t_max_degC, hi, atol=0.05)
