@@ -204,3 +204,22 @@ def test_analytic_shortcut_matches_solver_for_warm_cells():
     lo, hi = _analytic_extremes(ts, d1, np.full(n, k), np.full(n, q), DEPTHS, dt)
     np.testing.assert_allclose(r.t_min_degC, lo, atol=0.05)
     np.testing.assert_allclose(r.t_max_degC, hi, atol=0.05)
+
+
+def test_winters_follow_the_cold_season():
+    # Convention of kernel_frost: northern-winter cells (coldest month Oct..Mar) count
+    # freezing seasons July 1st .. June 30th, other cells calendar years (day index by hand:
+    # Jan..Jun of a 365-day year are 181 days)
+    from geothermmap.kernel_frost import _season_shift
+
+    days = np.arange(3 * 365, dtype=np.float64)
+    daily = np.stack([days, days], axis=1)
+    monthly = np.zeros((12, 2))
+    monthly[0, 0] = -5.0  # cell 0: coldest in January
+    monthly[6, 1] = -5.0  # cell 1: coldest in July
+    out = _season_shift(daily, monthly)
+    np.testing.assert_array_equal(out[:, 1], days)
+    season2 = out[365:730, 0]  # second season: July 1st of year 1 .. June 30th of year 2
+    assert season2[0] == 181 and season2[183] == 364 and season2[184] == 365
+    assert season2[-1] == 365 + 180
+    assert out[0, 0] == 181 and out[184, 0] == 0  # first season: year 1's autumn stands in
