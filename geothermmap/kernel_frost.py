@@ -28,6 +28,15 @@ Conventions (also written into the output tags):
   thaw depth, t_min/t_max_latent from the periodic analytic solution of the daily
   forcing plus the geothermal gradient ``q z / k`` (as in the numerical run).
   Multi-year inputs run every cell numerically.
+* Freezable water: all the water content (no unfrozen water left at the lower bound of the
+  freezing range); frozen properties from the recipe's conductivity model with
+  ``frozen=True``.
+* Solver grid: one for every cell (:func:`solver_grid`), so results do not depend on the
+  block. Spin-up: ``years: auto`` repeats the first season until the January-1st (season
+  start) profile changes by less than 0.01 K, at most 30 years; an integer runs exactly that
+  many spin-up years.
+* ``frozen_days``, ``t_min_latent``, ``t_max_latent`` of a multi-year input cover the
+  record of seasons (mean days per year; extremes over the record).
 
 Screening estimates: design frost depths follow local codes and licensed engineers.
 """
