@@ -161,15 +161,9 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
     tif = Path(tif)
     name = name or tif.stem
     info = OUTPUTS.get(name)
-    with rasterio.open(tif) as probe_ds:
-        categorical = probe_ds.dtypes[0] == "uint8"
-        n_bands = probe_ds.count
-    codes = {} if categorical else _codes(name)
-    ncols = {1: 1, 2: 2, 3: 3, 4: 2}.get(n_bands, 4)
-    nrows = math.ceil(n_bands / ncols)
-    open_opts = {"OVERVIEW_LEVEL": "NONE"} if (categorical or codes) else {}
-    with rasterio.open(tif, **open_opts) as ds:
-        data, factor = _read(ds, max(200, max_side // ncols), nearest=bool(categorical or codes))
+    with rasterio.open(tif) as ds:  # metadata from the file itself
+        categorical = ds.dtypes[0] == "uint8"
+        n_bands = ds.count
         tags = ds.tags()
         nodata = ds.nodata
         descriptions = [d or f"band {i + 1}" for i, d in enumerate(ds.descriptions)]
@@ -177,6 +171,13 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
         left, bottom, right, top = ds.bounds
         units = tags.get("units") or (info.units if info else "")
         north_up = ds.transform.e < 0
+    codes = {} if categorical else _codes(name)
+    ncols = {1: 1, 2: 2, 3: 3, 4: 2}.get(n_bands, 4)
+    nrows = math.ceil(n_bands / ncols)
+    # codes and classes must not be averaged: full resolution, nearest neighbour
+    open_opts = {"OVERVIEW_LEVEL": "NONE"} if (categorical or codes) else {}
+    with rasterio.open(tif, **open_opts) as ds:
+        data, factor = _read(ds, max(200, max_side // ncols), nearest=bool(categorical or codes))
     if not north_up:  # rows run south to north: flip to north up
         data = data[:, ::-1, :]
     values = np.ma.filled(data.astype(np.float64), np.nan)
@@ -190,7 +191,7 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
     aspect = (top - bottom) / max(right - left, 1e-12)
     if crs is not None and crs.is_geographic:
         aspect /= max(math.cos(math.radians(0.5 * (top + bottom))), 0.05)
-    panel_w = (fig_w - 2.2) / ncols
+    panel_w = (fig_w - (4.2 if categorical else 2.2)) / ncols  # legend or colour bar beside
     frost = bool(info is not None and info.frost)
     n_codes = sum(bool(np.any(values == v)) for v in codes)
     foot_h = (0.3 * math.ceil(n_codes / 2) + 0.15 if n_codes else 0.0) + (0.5 if frost else 0.0)
@@ -210,7 +211,7 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
         style = _class_style(tags, present, nodata, frost_classes)
         keys = sorted(style)
         cmap = colors.ListedColormap([style[k][1] for k in keys])
-        cmap.set_bad((0, 0, 0, 0))
+        cmap = cmap.with_extremes(bad=(0, 0, 0, 0))
         bounds = np.array([keys[0] - 0.5] + [k + 0.5 for k in keys]) if keys else [0, 1]
         norm = colors.BoundaryNorm(bounds, cmap.N)
         cmap_name = "classes"
@@ -239,8 +240,7 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
             cmap = base.copy()
             norm = colors.Normalize(lo, hi)
             norm_info = {"kind": "linear", "vmin": lo, "vmax": hi}
-        cmap = cmap.copy() if hasattr(cmap, "copy") else cmap
-        cmap.set_bad((0, 0, 0, 0))  # nodata transparent
+        cmap = cmap.with_extremes(bad=(0, 0, 0, 0))  # nodata transparent
         vmin, vmax = (lo, hi) if units == "degC" else (float(norm.vmin), float(norm.vmax))
         below = finite.size and float(finite.min()) < vmin
         above = finite.size and float(finite.max()) > vmax
@@ -292,8 +292,10 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
 
     visible = [ax for row in axes for ax in row if ax.get_visible()]
     if categorical:
-        top_fig.legend(handles=legend_items, loc="outside right center", fontsize=8,
-                       title=units or "class", title_fontsize=8.5, frameon=False)
+        # beside the panels (an axes legend: the layout makes room for it)
+        visible[min(ncols, len(visible)) - 1].legend(
+            handles=legend_items, loc="upper left", bbox_to_anchor=(1.03, 1.0), fontsize=8,
+            title=units or "class", title_fontsize=8.5, frameon=False)
     else:
         bounds = (np.linspace(norm_info["shown_min"], norm_info["shown_max"], 257)
                   if units == "degC" else None)
