@@ -85,6 +85,7 @@ class Quicklook:
     read_shape: tuple[int, int]  # rows, cols read per panel
     codes: list[str] = field(default_factory=list)  # legend entries of codes or classes
     colorbar_label: str = ""
+    panel_titles: list[str] = field(default_factory=list)
     caution: bool = False  # the frost caution is printed in the figure
     axes_px: list[tuple[float, float, float, float]] = field(default_factory=list)
     # map panels in PNG pixels: left, top, right, bottom (origin top left)
@@ -336,7 +337,8 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
         tmp.replace(path)
     return Quicklook(name, png, extent, crs.to_string() if crs else "", units, cmap_name,
                      norm_info, n_bands, tuple(values.shape[1:]), code_labels,
-                     "" if categorical else cb_label, frost, axes_px, path)
+                     "" if categorical else cb_label, descriptions if n_bands > 1 else [],
+                     frost, axes_px, path)
 
 
 def _axis_label(crs, axis: str) -> str:

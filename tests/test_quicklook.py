@@ -140,3 +140,19 @@ def test_geographic_axes(tmp_path):
     # 3 x 2 degrees at 49 degN: the panel is 3 cos(49) / 2 = 0.98 as wide as high
     np.testing.assert_allclose((right - left) / (bottom - top), 1.5 * np.cos(np.radians(49)),
                                rtol=0.02)  # a pixel of rounding in each dimension
+
+
+def test_codes_in_day_of_year_maps_and_band_names(tmp_path):
+    """warming_doy: -1 = never above, -2 = always above (physics.rootzone codes)."""
+    from geothermmap.physics.rootzone import ALWAYS_ABOVE, NEVER_ABOVE
+
+    doy = np.full((2, 30, 40), 120.0)
+    doy[0, :, :10] = NEVER_ABOVE
+    doy[1, :, 30:] = ALWAYS_ABOVE
+    path = _write(tmp_path / "warming_doy.tif", doy)
+    with rasterio.open(path, "r+") as ds:
+        ds.descriptions = ("threshold 5 degC", "threshold 10 degC")
+    q = render_quicklook(path, name="warming_doy")
+    assert q.panel_titles == ["threshold 5 degC", "threshold 10 degC"]
+    assert sorted(q.codes) == ["above the threshold all year", "never above the threshold"]
+    assert q.norm["vmin"] < 120.0 < q.norm["vmax"]  # the codes do not stretch the scale
