@@ -356,7 +356,9 @@ def test_input_errors():
 _SMALL_GRID = ft.depth_grid(10.0, 30, 0.02)
 
 
-@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(  # derandomize: the same examples on every run, so CI is reproducible
+    max_examples=25, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow]
+)
 @given(
     mean=st.floats(0.0, 8.0),
     amp=st.floats(6.0, 20.0),
@@ -385,12 +387,17 @@ def test_more_latent_heat_means_shallower_frost(mean, amp, k, kf_ratio, c):
     # Seasonal frost only: where ground stays frozen at depth (possible with a
     # positive surface mean through the thermal offset of k_f > k_u) the
     # periodic state does not depend on the latent heat, only the way there.
-    seasonal = res.frost_depth_m[~res.perennially_frozen]
+    # Ground frozen down to the grid bottom after the fixed 3 years is marginal
+    # permafrost still on its way (zero curtain at depth): left out as well.
+    keep = ~res.perennially_frozen & (res.frost_depth_m < _SMALL_GRID[-1])
+    seasonal = res.frost_depth_m[keep]
     # 1 mm: interpolation of the envelope between nodes
     assert np.all(np.diff(seasonal) <= 1e-3)
 
 
-@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@settings(  # derandomize: the same examples on every run, so CI is reproducible
+    max_examples=25, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow]
+)
 @given(amp=st.floats(6.0, 20.0), k=st.floats(0.8, 2.5), water=st.floats(0.05, 0.4))
 def test_frost_depth_grows_with_freezing_index(amp, k, water):
     # colder annual means at fixed amplitude -> larger freezing index -> deeper frost
@@ -411,5 +418,41 @@ def test_frost_depth_grows_with_freezing_index(amp, k, water):
         max_spinup_years=3,
         spinup_tolerance_K=0.0,
     )
-    seasonal = res.frost_depth_m[~res.perennially_frozen]  # as in the test above
+    keep = ~res.perennially_frozen & (res.frost_depth_m < _SMALL_GRID[-1])  # as above
+    seasonal = res.frost_depth_m[keep]
     assert np.all(np.diff(seasonal) >= -1e-3)
+
+
+def test_accelerated_spinup_reaches_the_plain_periodic_state(monkeypatch):
+    # The deep-mean correction only shortens the way to the periodic state:
+    # compared with plain spin-up run to a tight tolerance (1e-5 K per year).
+    g = ft.depth_grid(10.0, 30, 0.02)
+    means = np.array([4.0, 2.0, 1.0, -3.0])
+    n = means.size
+    ts = ft.daily_forcing_from_harmonics(means, np.full((1, n), -12.0), np.zeros((1, n)))
+
+    def run(accelerate, years, tol):
+        monkeypatch.setattr(ft, "SPINUP_ACCELERATION", accelerate)
+        return ft.solve_freeze_thaw(
+            ts,
+            1.2,
+            1.6,
+            2.4e6,
+            1.9e6,
+            0.3,
+            [0.5, 1.0, 2.0],
+            grid_m=g,
+            bottom_heat_flux_w_m2=0.06,
+            dt_days=DT_YEAR,
+            max_spinup_years=years,
+            spinup_tolerance_K=tol,
+        )
+
+    ref = run(False, 3000, 1e-5)
+    fast = run(True, 30, 0.01)
+    assert ref.spinup_converged.all() and fast.spinup_converged.all()
+    assert np.all(fast.spinup_years < ref.spinup_years)
+    # 2 cm and 1 day: the 0.01 K spin-up tolerance of the fast run
+    np.testing.assert_allclose(fast.frost_depth_m, ref.frost_depth_m, atol=0.02)
+    np.testing.assert_allclose(fast.frozen_days, ref.frozen_days, atol=1.0)
+    np.testing.assert_allclose(fast.thaw_depth_m, ref.thaw_depth_m, atol=0.02)
