@@ -147,10 +147,17 @@ def _summarise(result: Any, quiet: bool) -> None:
     counts = rec.get("counts", {})
     click.echo(f"cells: {counts.get('valid_cells', 0)} valid, "
                f"{counts.get('nodata_cells', 0)} nodata")
-    clipped = {k: v for k, v in counts.items()
-               if isinstance(v, int) and v and k not in {"valid_cells", "nodata_cells"}}
-    for k, v in clipped.items():
-        click.echo(f"  {k.replace('_', ' ')}: {v} cells")
+    from geothermmap.kernel import BOUNDS_COUNTERS
+
+    for k in BOUNDS_COUNTERS:
+        if counts.get(k):
+            click.echo(f"  {k.replace('_', ' ')}: {counts[k]} cells")
+    if counts.get("freeze_thaw_cells_solved"):
+        click.echo(f"freeze-thaw: {counts['freeze_thaw_cells_solved']} cells solved "
+                   f"numerically, {counts.get('freeze_thaw_cells_analytic', 0)} never freeze; "
+                   f"spin-up up to {counts.get('freeze_thaw_spinup_years_max', 0)} years, "
+                   f"{counts.get('freeze_thaw_spinup_unconverged_cells', 0)} cells not "
+                   "converged")
     for note in rec.get("notes", []):
         click.echo(f"note: {note}")
     click.echo(f"run record: {result.record_path}")

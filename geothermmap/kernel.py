@@ -71,6 +71,8 @@ class CellState:
 
 #: Output groups computed by separate modules, each exposing
 #: ``compute(state: CellState, wanted: set[str]) -> dict[str, ndarray (bands, n) or (n,)]``
+#: (an optional ``"_counts"`` entry holds run counters for the run record; names ending in
+#: ``_max`` are combined over blocks by maximum, others by sum)
 #: and optionally ``tags(config) -> dict[output, dict[str, str]]``.
 GROUP_MODULES = {
     "freeze_thaw": "geothermmap.kernel_frost",
@@ -263,8 +265,10 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
             if module is None or module.__name__ in done:
                 continue
             done.add(module.__name__)
-            values.update({k: v for k, v in module.compute(state, wanted).items()
-                           if k in wanted})
+            group_values = module.compute(state, wanted)
+            for key, value in group_values.pop("_counts", {}).items():
+                counts[key] = counts.get(key, 0) + value  # "_max" keys: see pipeline
+            values.update({k: v for k, v in group_values.items() if k in wanted})
 
     for name, arr in values.items():
         arr = np.asarray(arr, dtype=np.float64)

@@ -156,6 +156,8 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
         if calm.any():
             a, b = _analytic_extremes(daily[:, calm], d1[calm], ku[calm], q[calm], depths, dt)
             tmin[:, calm], tmax[:, calm] = a, b
+    counts = {"freeze_thaw_cells_solved": int(run.sum()),
+              "freeze_thaw_cells_analytic": int((ok & ~run).sum())}
     if run.any():
         r = freezethaw.solve_freeze_thaw(
             np.ascontiguousarray(daily[:, run]), ku[run], kf[run], cu[run], cf[run],
@@ -169,6 +171,11 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
         frozen_days[:, run] = r.frozen_days
         tmin[:, run] = r.t_min_degC
         tmax[:, run] = r.t_max_degC
+        years = np.broadcast_to(np.asarray(r.spinup_years), (int(run.sum()),))
+        conv = np.broadcast_to(np.asarray(r.spinup_converged), (int(run.sum()),))
+        counts["freeze_thaw_spinup_years_max"] = int(years.max())
+        counts["freeze_thaw_spinup_years_sum"] = int(years.sum())
+        counts["freeze_thaw_spinup_unconverged_cells"] = int((~conv).sum())
     bad = ~ok
     for arr in (frost_y, frozen_days, tmin, tmax):
         arr[..., bad] = np.nan
@@ -199,7 +206,9 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
         "frost_depth_winters": frost_y,
         "design_frost_depth": design_depth,
     }
-    return {k: v for k, v in out.items() if k in wanted}
+    result = {k: v for k, v in out.items() if k in wanted}
+    result["_counts"] = counts  # run counters for the run record (see kernel.compute_block)
+    return result
 
 
 def tags(config: KernelConfig) -> dict[str, dict[str, str]]:

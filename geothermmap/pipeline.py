@@ -368,7 +368,7 @@ def _combine(parts: list[dict[str, Any]], outputs: tuple[str, ...]) -> tuple[dic
         counts["valid_cells"] += p["valid_cells"]
         counts["nodata_cells"] += p["nodata_cells"]
         for k, v in p["counts"].items():
-            counts[k] = counts.get(k, 0) + v
+            counts[k] = max(counts.get(k, 0), v) if k.endswith("_max") else counts.get(k, 0) + v
         for name in outputs:
             bands = p["outputs"][name]
             acc = totals.setdefault(name, [[0, 0.0, 0.0, math.inf, -math.inf] for _ in bands])
