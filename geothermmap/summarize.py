@@ -150,7 +150,7 @@ def read_run_outputs(output_dir: str | Path, names: list[str] | None = None
             if ds.nodata is not None and math.isfinite(ds.nodata):
                 legend.pop(int(ds.nodata), None)  # e.g. class_0 = nodata
             categorical = ds.dtypes[0] == "uint8" or entry.get("units") == "class"
-        units = entry.get("units") or OUTPUTS.get(name, OUTPUTS["t_mean"]).units
+        units = entry.get("units") or (OUTPUTS[name].units if name in OUTPUTS else "")
         outputs.append(_Output(name, path, units, categorical, labels, descriptions, legend))
     assert grid is not None
     return grid, outputs, rec
