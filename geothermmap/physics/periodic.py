@@ -360,8 +360,12 @@ def _newton_bracketed(a, b, lo, hi, t, sign, w):
 
 
 @njit(cache=True, nogil=True)
-def _extrema(a, b, ctab, stab, v, dt, w, year):
-    """Global max and min over one period: (t_max, f_max, t_min, f_min), t in [0, year)."""
+def _extrema(a, b, ctab, stab, v, dt, w, year, want_max=True):
+    """Global max and min over one period: (t_max, f_max, t_min, f_min), t in [0, year).
+
+    With ``want_max`` false the maximum may be skipped (returned as NaN) where that saves
+    work: the frost-depth search needs only the minimum.
+    """
     h = a.shape[0]
     m = ctab.shape[1]
     if h == 1:
@@ -390,7 +394,10 @@ def _extrema(a, b, ctab, stab, v, dt, w, year):
     if a1 > 0.0 and s1 < a1 and a1 * math.sqrt(1.0 - (s1 / a1) ** 2) > s2:
         t_peak = math.atan2(b[0], a[0]) / w
         half = math.asin(s1 / a1) / w
-        t_hi, f_hi = _newton_bracketed(a, b, t_peak - half, t_peak + half, t_peak, 1.0, w)
+        if want_max:
+            t_hi, f_hi = _newton_bracketed(a, b, t_peak - half, t_peak + half, t_peak, 1.0, w)
+        else:
+            t_hi, f_hi = 0.0, np.nan
         t_trough = t_peak + 0.5 * year
         t_lo, f_lo = _newton_bracketed(a, b, t_trough - half, t_trough + half, t_trough, -1.0, w)
         t_hi = t_hi % year
@@ -519,7 +526,7 @@ def _min_and_slope(cos_coef, sin_coef, i, d, z, a, b, ctab, stab, v, dt, w, year
     By the envelope theorem d(min_t f)/dz = df/dz at the minimising time.
     """
     _coefs_at_depth(cos_coef, sin_coef, i, d, z, a, b)
-    _, _, t_lo, f_lo = _extrema(a, b, ctab, stab, v, dt, w, year)
+    _, _, t_lo, f_lo = _extrema(a, b, ctab, stab, v, dt, w, year, False)
     c1 = math.cos(w * t_lo)
     s1 = math.sin(w * t_lo)
     cn = c1
