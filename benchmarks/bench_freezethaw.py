@@ -115,12 +115,14 @@ def main() -> None:
     iters = np.concatenate([r.iterations for r in res]).mean() / 365
     print(
         f"[1] all freezing, 1 year, 1 worker : {n / wall:9.0f} cell-years/s "
-        f"(wall {wall:.1f} s, cpu {cpu:.1f} s, {iters:.2f} iterations/step)"
+        f"(wall {wall:.1f} s, cpu {cpu:.1f} s = {n / cpu:.0f} per cpu-second, "
+        f"{iters:.2f} iterations/step)"
     )
     _, wall2, cpu2 = timed(lambda: run_chunks(ts, c, idx, args.workers, init))
     print(
         f"[1] all freezing, 1 year, {args.workers} workers: {n / wall2:9.0f} cell-years/s "
-        f"(wall {wall2:.1f} s, cpu {cpu2:.1f} s, speed-up {wall / wall2:.2f})"
+        f"(wall {wall2:.1f} s, cpu {cpu2:.1f} s = {n / cpu2:.0f} per cpu-second, "
+        f"speed-up {wall / wall2:.2f})"
     )
 
     m = min(args.spinup_cells, n)

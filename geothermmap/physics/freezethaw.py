@@ -7,11 +7,23 @@ heat equation,
     dH/dt = d/dz ( k(T) dT/dz ),       H(T) = sensible heat + latent heat,
 
 with the non-linearity resolved at each time step by the enthalpy linearisation
-of Swaminathan & Voller (1992). Cells are independent: the numba kernel loops
-over cells, time steps and iterations in compiled code and solves one
-tridiagonal (Thomas) system per cell and iteration. The kernel releases the GIL
-(``nogil``), so dask or a thread pool can run several blocks of cells at once;
-each call is single-threaded.
+of Swaminathan & Voller (1992). Cells are independent: the numba kernel
+advances blocks of 32 cells together (the innermost loops run over the cells of
+a block, which the compiler turns into SIMD code) and solves one tridiagonal
+(Thomas) system per cell and iteration; a cell that has converged in a time
+step is left alone while the others of its block iterate, so results do not
+depend on the neighbours. The kernel releases the GIL (``nogil``), so dask or a
+thread pool can run several blocks of cells at once; each call is
+single-threaded.
+
+Discretisation: node-centred finite volumes (node ``i`` owns
+``[(z[i-1]+z[i])/2, (z[i]+z[i+1])/2]``, the bottom node ``[(z[-2]+z[-1])/2,
+z[-1]]``), interface conductance from the harmonic mean of the two node
+conductivities, the surface node held at the forcing, the bottom heat flux
+added to the bottom node. The enthalpy update of the accepted iterate and the
+reported surface heat flux come from the same linear solve, so the change of
+column enthalpy equals the heat that entered, to round-off, whatever the
+iteration tolerance.
 
 Conventions
 -----------
