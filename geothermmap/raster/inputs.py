@@ -115,16 +115,20 @@ def _read_source(src: SourceFile, grid: TargetGrid, window: Window) -> np.ndarra
     h, w = int(window.height), int(window.width)
     ds = _dataset(src.path)
     if src.same_grid:
-        out = np.full((len(src.bands), h, w), np.nan, dtype=np.float32)
         r0 = int(window.row_off) + src.row_offset
         c0 = int(window.col_off) + src.col_offset
         rr0, cc0 = max(r0, 0), max(c0, 0)
         rr1, cc1 = min(r0 + h, ds.height), min(c0 + w, ds.width)
+        inside = (rr0, cc0, rr1, cc1) == (r0, c0, r0 + h, c0 + w)
+        if inside:  # the usual case: one read straight into the result, no copy
+            data = ds.read(list(src.bands), window=Window(c0, r0, w, h), out_dtype="float32")
+            _mask_nodata(data, src.nodata)
+            return data
+        out = np.full((len(src.bands), h, w), np.nan, dtype=np.float32)
         if rr1 > rr0 and cc1 > cc0:
             data = ds.read(list(src.bands), window=Window(cc0, rr0, cc1 - cc0, rr1 - rr0),
                            out_dtype="float32")
-            if src.nodata is not None and not math.isnan(src.nodata):
-                data[data == np.float32(src.nodata)] = np.nan
+            _mask_nodata(data, src.nodata)
             out[:, rr0 - r0:rr1 - r0, cc0 - c0:cc1 - c0] = data
         return out
     key = ("vrt", src.path, src.resampling, grid)
@@ -143,6 +147,12 @@ def _read_source(src: SourceFile, grid: TargetGrid, window: Window) -> np.ndarra
         )
     vrt = handles[key]
     return vrt.read(list(src.bands), window=window, out_dtype="float32")
+
+
+def _mask_nodata(data: np.ndarray, nodata: float | None) -> None:
+    """Replace the source's nodata value by NaN, in place."""
+    if nodata is not None and not math.isnan(nodata):
+        data[data == np.float32(nodata)] = np.nan
 
 
 def _open_checked(path: Path, layer_name: str):
@@ -262,20 +272,61 @@ def coverage_fraction(layer: InputLayer, grid: TargetGrid) -> float:
     return min(fractions)
 
 
+#: Cells per band that :func:`sample_values` may decompress: a bounded plausibility sample,
+#: so that planning a run costs the same on a 1000 and a 20000 pixel wide grid.
+SAMPLE_BUDGET_CELLS = 4_000_000
+
+
+def _sample_windows(ds, max_side: int) -> tuple[list[Window], int]:
+    """Whole source blocks spread evenly over the raster, and a stride within them.
+
+    Reading a window of a compressed tiled file decompresses every tile it touches, so
+    the sample is made of whole blocks (at most :data:`SAMPLE_BUDGET_CELLS` cells), each
+    decimated to about ``max_side**2`` values in total.
+    """
+    bh, bw = (min(int(v), lim) for v, lim in zip(ds.block_shapes[0], (ds.height, ds.width),
+                                                 strict=True))
+    nby, nbx = math.ceil(ds.height / bh), math.ceil(ds.width / bw)
+    max_blocks = max(1, SAMPLE_BUDGET_CELLS // (bh * bw))
+    if nby * nbx <= max_blocks:
+        rows, cols = range(nby), range(nbx)
+    else:
+        ky = min(nby, max(1, round(math.sqrt(max_blocks * nby / nbx))))
+        kx = min(nbx, max(1, max_blocks // ky))
+        rows = sorted({round(i * (nby - 1) / max(ky - 1, 1)) for i in range(ky)})
+        cols = sorted({round(j * (nbx - 1) / max(kx - 1, 1)) for j in range(kx)})
+    windows = [Window(c * bw, r * bh, min(bw, ds.width - c * bw), min(bh, ds.height - r * bh))
+               for r in rows for c in cols]
+    cells = sum(int(w.width) * int(w.height) for w in windows)
+    stride = max(1, math.ceil(math.sqrt(cells / (max_side * max_side))))
+    return windows, stride
+
+
 def sample_values(layer: InputLayer, max_side: int = 256) -> np.ndarray:
-    """A decimated read of every band in native resolution, canonical units (for checks)."""
+    """A bounded sample of every band in native resolution, canonical units (for checks).
+
+    Uses the file's overviews when it has them (a decimated read of about ``max_side``
+    pixels a side); otherwise whole blocks spread evenly over the raster, decimated (see
+    :func:`_sample_windows`). Either way the cost does not grow with the grid size.
+    """
     if layer.is_constant:
         return np.array([layer.value * layer.scale + layer.offset], dtype=np.float64)
     chunks = []
     for src in layer.sources:
         with rasterio.open(src.path) as ds:
-            f = max(1, math.ceil(max(ds.width, ds.height) / max_side))
-            shape = (len(src.bands), max(1, ds.height // f), max(1, ds.width // f))
-            data = ds.read(list(src.bands), out_shape=shape, out_dtype="float64",
-                           resampling=Resampling.nearest)
-            if src.nodata is not None and not math.isnan(src.nodata):
-                data[data == src.nodata] = np.nan
-            chunks.append(data.reshape(len(src.bands), -1))
+            bands = list(src.bands)
+            if ds.overviews(bands[0]):
+                f = max(1, math.ceil(max(ds.width, ds.height) / max_side))
+                shape = (len(bands), max(1, ds.height // f), max(1, ds.width // f))
+                parts = [ds.read(bands, out_shape=shape, out_dtype="float32",
+                                 resampling=Resampling.nearest)]
+            else:
+                windows, stride = _sample_windows(ds, max_side)
+                parts = [ds.read(bands, window=w, out_dtype="float32")[:, ::stride, ::stride]
+                         for w in windows]
+            data = np.concatenate([p.reshape(len(bands), -1) for p in parts], axis=1)
+            _mask_nodata(data, src.nodata)  # float32, as in block reads
+            chunks.append(data.astype(np.float64))
     data = np.concatenate(chunks, axis=0)
     return data * layer.scale + layer.offset
 
