@@ -6,7 +6,6 @@ with ``--debug``.
 
 from __future__ import annotations
 
-import functools
 import sys
 from collections.abc import Callable
 from pathlib import Path
@@ -14,45 +13,17 @@ from typing import Any
 
 import click
 
-from geothermmap.errors import UserError
+from geothermmap.cli_support import (  # re-exported for command modules
+    EXIT_INTERNAL_ERROR,
+    EXIT_INTERRUPTED,
+    EXIT_USER_ERROR,
+    _err,
+    handle_errors,
+)
 from geothermmap.outputs import FROST_CAUTION, OUTPUTS
 
-EXIT_USER_ERROR = 1
-EXIT_INTERNAL_ERROR = 2
-EXIT_INTERRUPTED = 130
-
-
-def _err(msg: str) -> None:
-    click.echo(msg, err=True)
-
-
-def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
-    """Turn user errors into a message and exit code 1 (traceback only with --debug)."""
-
-    @functools.wraps(fn)
-    def wrapper(*args: Any, **kwargs: Any) -> Any:
-        debug = bool(click.get_current_context().find_root().params.get("debug"))
-        try:
-            return fn(*args, **kwargs)
-        except UserError as err:
-            if debug:
-                raise
-            _err(f"error: {err}")
-            sys.exit(EXIT_USER_ERROR)
-        except KeyboardInterrupt:
-            _err("interrupted: stopped cleanly, no partial output left under a final name. "
-                 "Rerun with --resume to continue.")
-            sys.exit(EXIT_INTERRUPTED)
-        except click.exceptions.Exit:
-            raise
-        except Exception as err:  # noqa: BLE001 - last line of defence for users
-            if debug:
-                raise
-            _err(f"internal error: {type(err).__name__}: {err}\n"
-                 "This is a bug in geothermmap or a library; rerun with --debug for details.")
-            sys.exit(EXIT_INTERNAL_ERROR)
-
-    return wrapper
+__all__ = ["main", "handle_errors", "EXIT_USER_ERROR", "EXIT_INTERNAL_ERROR",
+           "EXIT_INTERRUPTED"]
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})

@@ -29,7 +29,7 @@ from rasterio.errors import CRSError
 from rasterio.warp import transform as warp_transform
 from rasterio.windows import Window
 
-from geothermmap.cli import handle_errors
+from geothermmap.cli_support import handle_errors
 from geothermmap.errors import UserError
 from geothermmap.kernel import compute_block, output_band_count
 from geothermmap.outputs import FROST_CAUTION, OUTPUTS
