@@ -25,6 +25,7 @@ class OutputInfo:
     dtype: str = "float32"
     group: str = "core"  # core | freeze_thaw | multi_year | root_zone | thresholds
     frost: bool = False  # carries the frost caution
+    coded: bool = False  # holds code values among its numbers (overviews: nearest)
 
     @property
     def filename(self) -> str:
@@ -50,7 +51,7 @@ OUTPUTS: dict[str, OutputInfo] = {
         _O("frost_depth", "m", "Conduction-only frost penetration depth of the periodic "
            "solution (no latent heat: overstates frost depth). 0 = the surface minimum stays "
            "above 0 degC; -1 = annual mean at or below 0 degC (frozen at depth, not a depth)",
-           frost=True),
+           frost=True, coded=True),
         # --- per depth --------------------------------------------------------------------
         _O("t_mean", "degC", "Annual mean temperature", per_depth=True),
         _O("t_min", "degC", "Minimum temperature of the reconstructed annual cycle",
@@ -98,9 +99,9 @@ OUTPUTS: dict[str, OutputInfo] = {
         _O("root_zone_t_max", "degC", "Maximum over the year of the depth-averaged root-zone "
            "temperature", group="root_zone"),
         _O("warming_doy", "day of year", "First day of year the soil warms through each "
-           "threshold", per_threshold=True, group="thresholds"),
+           "threshold", per_threshold=True, group="thresholds", coded=True),
         _O("cooling_doy", "day of year", "Last day of year the soil cools through each "
-           "threshold", per_threshold=True, group="thresholds"),
+           "threshold", per_threshold=True, group="thresholds", coded=True),
         _O("days_above", "days", "Days per year above each threshold", per_threshold=True,
            group="thresholds"),
         _O("degree_days", "degC day", "Soil degree-days above the base temperature",

@@ -143,8 +143,12 @@ def write_cog(
     tags: dict[str, str] | None = None,
     compression: str = "deflate",
     num_threads: int | str = "ALL_CPUS",
+    coded: bool = False,
 ) -> Path:
     """Assemble block files into one COG at ``out_path`` (atomic: temp name, then rename).
+
+    ``coded``: the map holds code values (e.g. -1 = frozen at depth) among its numbers, so
+    its overviews take the nearest value instead of averaging codes with depths.
 
     Two passes over the block files, both by GDAL: (1) the overviews of the VRT mosaic,
     written uncompressed next to it (``.vrt.ovr``), all levels in one pass; (2) one COG
@@ -162,7 +166,7 @@ def write_cog(
     options = dict(COMPRESSION_OPTIONS[compression])
     if dtype == "uint8":
         options["PREDICTOR"] = "NO"
-    resampling = Resampling.nearest if dtype == "uint8" else Resampling.average
+    resampling = Resampling.nearest if dtype == "uint8" or coded else Resampling.average
     factors = [2**k for k in range(1, overview_count(grid.width, grid.height) + 1)]
     # Pass 1: GDAL builds all levels in one pass over the mosaic (the COG driver's own
     # overview generation re-reads the VRT sources for every level: 4x slower).
