@@ -322,8 +322,9 @@ def sample_values(layer: InputLayer, max_side: int = 256) -> np.ndarray:
                                  resampling=Resampling.nearest)]
             else:
                 windows, stride = _sample_windows(ds, max_side)
+                # copy the decimated values: a strided view would keep each block alive
                 parts = [ds.read(bands, window=w, out_dtype="float32")[:, ::stride, ::stride]
-                         for w in windows]
+                         .copy() for w in windows]
             data = np.concatenate([p.reshape(len(bands), -1) for p in parts], axis=1)
             _mask_nodata(data, src.nodata)  # float32, as in block reads
             chunks.append(data.astype(np.float64))

@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import math
 import os
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -23,6 +24,7 @@ import numpy as np
 import rasterio
 import rasterio.shutil
 from rasterio.enums import Resampling
+from rasterio.errors import NotGeoreferencedWarning
 from rasterio.windows import Window
 
 from geothermmap.raster.grid import TargetGrid
@@ -179,9 +181,12 @@ def write_cog(
     # which GDAL_DISABLE_READDIR_ON_OPEN (set because of the many block files) skips.
     levels = [f"GTIFF_DIR:{k}:{ovr_path}" for k in range(1, len(factors) + 1)]
     for name, f in zip(levels, factors, strict=True):
-        with rasterio.open(name) as lvl:  # the .ovr holds the levels in this order
-            if (lvl.width, lvl.height) != (-(-grid.width // f), -(-grid.height // f)):
-                raise RuntimeError(f"unexpected overview layout in {ovr_path}")
+        with warnings.catch_warnings():  # an overview level carries no georeferencing
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            with rasterio.open(name) as lvl:  # the .ovr holds the levels in this order
+                shape = (lvl.width, lvl.height)
+        if shape != (-(-grid.width // f), -(-grid.height // f)):
+            raise RuntimeError(f"unexpected overview layout in {ovr_path}")
     vrt_path.write_text(_vrt_xml(grid, blocks, bands, overviews=levels, **xml),
                         encoding="utf-8")
     # Pass 2: one compressing copy of the full-resolution image and of those overviews.
