@@ -667,5 +667,7 @@ def _write_output(plan: RunPlan, name: str, out: Path, work: Path, block_files) 
     nodata = 0 if info.dtype == "uint8" else float("nan")
     return write_cog(out / info.filename, work, plan.grid, block_files, bands, dtype=info.dtype,
                      nodata=nodata, units=info.units, tags=output_tags(plan, name),
-                     compression=plan.recipe.compression, num_threads=1,
-                     coded=info.coded)
+                     compression=plan.recipe.compression, coded=info.coded,
+                     # GDAL's threads compress: rasterio holds the GIL during the copy, so
+                     # Python threads running two copies at once do not overlap
+                     num_threads="ALL_CPUS")

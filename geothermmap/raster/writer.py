@@ -4,10 +4,19 @@ Why this shape: the GDAL COG driver can only copy, not write windows, so a COG c
 streamed from dask directly. Each dask task therefore writes its block (all output bands)
 to its own small GeoTIFF under the run's work folder: no two tasks ever write to the same
 file, so threads and processes on a cluster need no lock. A block file is written under a
-temporary name and renamed when complete, so a resumed run can trust any block file it
-finds. When all blocks exist, a VRT mosaic per output (which also carries units, band
-descriptions and tags) is copied once into a COG with GDAL's multi-threaded compression,
-again under a temporary name that is renamed into place only when complete.
+temporary name (host process id + buffer id) and renamed when complete (``os.replace``,
+atomic on one filesystem), so a resumed run can trust any block file it finds and a task
+that runs twice (a cluster retrying a lost worker) only replaces a block by the same bytes.
+Block files are uncompressed: they are written once and read twice (overviews, COG), and
+compressing them would add a compression pass to every output pixel.
+
+When all blocks exist, each output is assembled by the process that runs the pipeline:
+a VRT mosaic of the block files (which also carries units, band descriptions and tags),
+its overviews built by GDAL in one pass into an uncompressed ``.vrt.ovr``, and one COG
+copy that compresses every pixel once with GDAL's threads, under a temporary name that
+is renamed into place only when complete. On a cluster this means the workers and the
+machine that runs ``geothermmap run`` must all see the output folder at the same path
+(a shared filesystem); see ``benchmarks/README.md`` for what to do without one.
 """
 
 from __future__ import annotations
