@@ -23,7 +23,6 @@ from __future__ import annotations
 
 import math
 import os
-import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -33,7 +32,6 @@ import numpy as np
 import rasterio
 import rasterio.shutil
 from rasterio.enums import Resampling
-from rasterio.errors import NotGeoreferencedWarning
 from rasterio.windows import Window
 
 from geothermmap.raster.grid import TargetGrid
@@ -190,15 +188,12 @@ def write_cog(
     # Reference the levels explicitly: GDAL finds an external .ovr by listing the folder,
     # which GDAL_DISABLE_READDIR_ON_OPEN (set because of the many block files) skips.
     levels = [f"GTIFF_DIR:{k}:{ovr_path}" for k in range(1, len(factors) + 1)]
-    for name, f in zip(levels, factors, strict=True):
-        with warnings.catch_warnings():  # an overview level carries no georeferencing
-            warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            with rasterio.open(name) as lvl:  # the .ovr holds the levels in this order
-                shape = (lvl.width, lvl.height)
-        if shape != (-(-grid.width // f), -(-grid.height // f)):
-            raise RuntimeError(f"unexpected overview layout in {ovr_path}")
     vrt_path.write_text(_vrt_xml(grid, blocks, bands, overviews=levels, **xml),
                         encoding="utf-8")
+    with rasterio.open(vrt_path) as vrt:  # the .ovr holds the levels in factor order
+        if vrt.overviews(1) != factors:
+            raise RuntimeError(f"unexpected overview layout in {ovr_path}: "
+                               f"{vrt.overviews(1)} instead of {factors}")
     # Pass 2: one compressing copy of the full-resolution image and of those overviews.
     with rasterio.Env(GDAL_NUM_THREADS=str(num_threads)):
         rasterio.shutil.copy(
