@@ -6,7 +6,14 @@ with ``--debug``.
 
 from __future__ import annotations
 
-import sys
+import os
+
+# dask runs one block per core; BLAS threads on top only oversubscribe (measured: the block
+# phase 10 % faster with one BLAS thread). Set before numpy is first imported.
+os.environ.setdefault("OPENBLAS_NUM_THREADS", "1")
+os.environ.setdefault("OMP_NUM_THREADS", "1")
+
+import sys  # noqa: E402
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any

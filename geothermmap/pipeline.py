@@ -566,29 +566,17 @@ def run_recipe(
             block_files = [(w, block_path(work, bi, bj)) for bi, bj, w in blocks]
             if progress:
                 progress("maps", 0, len(todo))
-            # one COG per core at a time: a single COG copy compresses on one thread
-            from concurrent.futures import ThreadPoolExecutor, as_completed
-
-            with ThreadPoolExecutor(max_workers=max(1, min(len(todo), os.cpu_count() or 1)),
-                                    thread_name_prefix="geothermmap-cog") as pool:
-                futures = {pool.submit(_write_output, plan, name, out, work, block_files): name
-                           for name in todo}
-                try:
-                    for i, fut in enumerate(as_completed(futures), start=1):
-                        name = futures[fut]
-                        path = fut.result()
-                        entry = record.output_entry(plan, name, path, summary[name])
-                        entry["input_corrections"] = {k: counts.get(k, 0)
-                                                      for k in BOUNDS_COUNTERS}
-                        rec["outputs"][name] = entry
-                        rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
-                        record.write(out / RECORD_NAME, rec)  # lists only complete outputs
-                        if progress:
-                            progress("maps", i, len(todo))
-                except BaseException:
-                    for f in futures:
-                        f.cancel()
-                    raise
+            # one output at a time: rasterio holds the GIL during a COG copy, so threads
+            # would not overlap two copies (measured: slower); GDAL's threads compress
+            for i, name in enumerate(todo, start=1):
+                path = _write_output(plan, name, out, work, block_files)
+                entry = record.output_entry(plan, name, path, summary[name])
+                entry["input_corrections"] = {k: counts.get(k, 0) for k in BOUNDS_COUNTERS}
+                rec["outputs"][name] = entry
+                rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
+                record.write(out / RECORD_NAME, rec)  # lists only complete outputs
+                if progress:
+                    progress("maps", i, len(todo))
             rec["outputs"] = {n: rec["outputs"][n] for n in plan.outputs if n in rec["outputs"]}
             if progress:
                 progress("maps", len(todo), len(todo))
