@@ -37,6 +37,7 @@ from geothermmap.kernel import (
     group_module,
 )
 from geothermmap.outputs import FROST_CAUTION, OUTPUTS
+from geothermmap.raster.cog import TileCodec, is_tile_store
 from geothermmap.raster.grid import TargetGrid
 from geothermmap.raster.inputs import (
     InputLayer,
@@ -46,7 +47,16 @@ from geothermmap.raster.inputs import (
     grid_of,
     open_layer,
 )
-from geothermmap.raster.writer import PARTIAL_SUFFIX, BandSpec, block_path, write_block, write_cog
+from geothermmap.raster.writer import (
+    PARTIAL_SUFFIX,
+    block_path,
+    block_size,
+    overview_count,
+    tile_codec,
+    tile_size,
+    write_block,
+    write_cog,
+)
 from geothermmap.recipe import (
     DEFAULT_BULK_DENSITY_G_CM3,
     DEFAULT_ORGANIC_MATTER_PERCENT,
@@ -84,8 +94,8 @@ class RunContext:
     grid: TargetGrid
     layers: dict[str, InputLayer]
     config: KernelConfig
-    band_layout: dict[str, tuple[int, ...]]  # output -> 1-based bands in block files
-    n_block_bands: int
+    codecs: dict[str, TileCodec]  # output -> how its tiles are stored
+    overview_levels: int
 
 
 @dataclass
@@ -102,11 +112,16 @@ class RunPlan:
 
     @property
     def context(self) -> RunContext:
-        n = max((b for bands in self.band_layout.values() for b in bands), default=0)
-        return RunContext(self.grid, self.layers, self.config, self.band_layout, n)
+        tile = tile_size(self.chunk)
+        codecs = {name: tile_codec(OUTPUTS[name].dtype, self.recipe.compression,
+                                   OUTPUTS[name].coded, tile) for name in self.outputs}
+        levels = min(overview_count(self.grid.width, self.grid.height),
+                     min(c.max_levels for c in codecs.values()))
+        return RunContext(self.grid, self.layers, self.config, codecs, levels)
 
     def blocks(self) -> list[tuple[int, int, Window]]:
-        return list(self.grid.blocks(self.chunk))
+        """Work blocks: chunks rounded up to whole COG tiles (see ``block_size``)."""
+        return list(self.grid.blocks(block_size(self.chunk)))
 
 
 @dataclass
@@ -282,7 +297,7 @@ def _default_chunk(layer: InputLayer) -> int:
         return DEFAULT_CHUNK
     with rasterio.open(layer.sources[0].path) as ds:
         by, bx = ds.block_shapes[0]
-    if bx == by and bx % 256 == 0 and 256 <= bx <= 2048:
+    if bx == by and bx % 512 == 0 and 512 <= bx <= 2048:
         return int(bx)
     return DEFAULT_CHUNK
 
@@ -317,7 +332,7 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
         configure_gdal()
         _GDAL_READY = True
     stats_path = Path(task.path + ".json")
-    if Path(task.path).exists() and stats_path.exists():  # complete from an earlier attempt
+    if is_tile_store(Path(task.path)) and stats_path.exists():  # complete from an earlier try
         try:
             return {**json.loads(stats_path.read_text()), "reused": True}
         except ValueError:
@@ -333,19 +348,16 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
         raise CellBoundsError(
             str(err).replace("{where}", f"row {row}, col {col}, x={x:.3f}, y={y:.3f}"), row, col
         ) from None
-    data = np.empty((ctx.n_block_bands, int(window.height), int(window.width)), np.float32)
     stats: dict[str, Any] = {"outputs": {}, "counts": result.counts,
                              "valid_cells": result.valid_cells,
                              "nodata_cells": result.nodata_cells}
-    for name, bands in ctx.band_layout.items():
-        arr = result.outputs[name]
-        data[[b - 1 for b in bands]] = arr
+    for name, arr in result.outputs.items():
         stats["outputs"][name] = [_partial_stats(arr[i]) for i in range(arr.shape[0])]
     stats_tmp = stats_path.with_name(stats_path.name + f".{os.getpid()}{PARTIAL_SUFFIX}")
     Path(task.path).parent.mkdir(parents=True, exist_ok=True)
     stats_tmp.write_text(json.dumps(stats))
     os.replace(stats_tmp, stats_path)
-    write_block(Path(task.path), data, ctx.grid, window)
+    write_block(Path(task.path), result.outputs, ctx.codecs, window, ctx.overview_levels)
     return stats
 
 
@@ -566,10 +578,9 @@ def run_recipe(
             block_files = [(w, block_path(work, bi, bj)) for bi, bj, w in blocks]
             if progress:
                 progress("maps", 0, len(todo))
-            # one output at a time: rasterio holds the GIL during a COG copy, so threads
-            # would not overlap two copies (measured: slower); GDAL's threads compress
+            # one output at a time; each assembly compresses its overviews on two threads
             for i, name in enumerate(todo, start=1):
-                path = _write_output(plan, name, out, work, block_files)
+                path = _write_output(plan, name, out, block_files)
                 entry = record.output_entry(plan, name, path, summary[name])
                 entry["input_corrections"] = {k: counts.get(k, 0) for k in BOUNDS_COUNTERS}
                 rec["outputs"][name] = entry
@@ -647,15 +658,10 @@ def output_tags(plan: RunPlan, name: str) -> dict[str, str]:
     return tags
 
 
-def _write_output(plan: RunPlan, name: str, out: Path, work: Path, block_files) -> Path:
+def _write_output(plan: RunPlan, name: str, out: Path, block_files) -> Path:
     info = OUTPUTS[name]
-    bands = [BandSpec(b, desc, tags)
-             for b, (desc, tags) in zip(plan.band_layout[name], band_descriptions(plan, name),
-                                        strict=True)]
-    nodata = 0 if info.dtype == "uint8" else float("nan")
-    return write_cog(out / info.filename, work, plan.grid, block_files, bands, dtype=info.dtype,
-                     nodata=nodata, units=info.units, tags=output_tags(plan, name),
-                     compression=plan.recipe.compression, coded=info.coded,
-                     # GDAL's threads compress: rasterio holds the GIL during the copy, so
-                     # Python threads running two copies at once do not overlap
-                     num_threads="ALL_CPUS")
+    descriptions, band_tags = zip(*band_descriptions(plan, name), strict=True)
+    ctx = plan.context
+    return write_cog(out / info.filename, name, plan.grid, block_files, descriptions,
+                     band_tags, ctx.codecs[name], units=info.units,
+                     tags=output_tags(plan, name), levels=ctx.overview_levels)

@@ -1,136 +1,78 @@
-"""Output writing: per-block intermediate files, then one Cloud-Optimized GeoTIFF per output.
+"""Output writing: compressed tiles per block, then one Cloud-Optimized GeoTIFF per output.
 
-Why this shape: the GDAL COG driver can only copy, not write windows, so a COG cannot be
-streamed from dask directly. Each dask task therefore writes its block (all output bands)
-to its own small GeoTIFF under the run's work folder: no two tasks ever write to the same
-file, so threads and processes on a cluster need no lock. A block file is written under a
-temporary name (host process id + buffer id) and renamed when complete (``os.replace``,
-atomic on one filesystem), so a resumed run can trust any block file it finds and a task
-that runs twice (a cluster retrying a lost worker) only replaces a block by the same bytes.
-Block files are uncompressed: they are written once and read twice (overviews, COG), and
-compressing them would add a compression pass to every output pixel.
+Why this shape: a COG has its overviews and all its directories before the image data,
+so it cannot be streamed from parallel tasks into one file. Each dask task therefore
+writes its block to its own file under the run's work folder (a *tile store*, see
+:mod:`geothermmap.raster.cog`): for every output, the block's 512 x 512 tiles already
+compressed exactly as they go into the COG, and the decimated pieces of every overview
+level. No two tasks ever write to the same file, so threads and processes on a cluster
+need no lock. A tile store is written under a temporary name and renamed when complete
+(``os.replace``, atomic on one filesystem): a resumed run can trust any store it finds,
+and a task that runs twice (a cluster retrying a lost worker) only replaces a store by the
+same bytes. Work blocks are whole multiples of the tile size, so tiles never straddle
+two tasks.
 
-When all blocks exist, each output is assembled by the process that runs the pipeline:
-a VRT mosaic of the block files (which also carries units, band descriptions and tags),
-its overviews built by GDAL in one pass into an uncompressed ``.vrt.ovr``, and one COG
-copy that compresses every pixel once with GDAL's threads, under a temporary name that
-is renamed into place only when complete. On a cluster this means the workers and the
-machine that runs ``geothermmap run`` must all see the output folder at the same path
-(a shared filesystem); see ``benchmarks/README.md`` for what to do without one.
+When all blocks exist, the process that runs the pipeline assembles each output: it
+composes and compresses the overview tiles from the stored pieces (a third of the pixels;
+two threads, the codecs release the GIL) and copies the full-resolution tiles byte for
+byte. On a cluster the workers and the machine that runs ``geothermmap run`` must all see
+the output folder at the same path (a shared filesystem); see ``benchmarks/README.md``.
 """
 
 from __future__ import annotations
 
 import math
-import os
-from collections.abc import Sequence
-from dataclasses import dataclass
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from concurrent.futures import ThreadPoolExecutor
 from pathlib import Path
-from xml.sax.saxutils import escape
 
 import numpy as np
-import rasterio
-import rasterio.shutil
-from rasterio.enums import Resampling
 from rasterio.windows import Window
 
+from geothermmap.raster.cog import (
+    TILE,
+    CogLayout,
+    TileCodec,
+    TileStoreReader,
+    overview_pieces,
+    template_tags,
+    write_cog_from_tiles,
+    write_tile_store,
+)
 from geothermmap.raster.grid import TargetGrid
 
+#: Creation options of each recipe ``compression`` for GDAL (the benchmark's floor and the
+#: demo inputs); the COG tiles use the same codec and level through :func:`tile_codec`.
 COMPRESSION_OPTIONS = {
     "deflate": {"COMPRESS": "DEFLATE", "PREDICTOR": "YES", "LEVEL": "1"},
     "zstd": {"COMPRESS": "ZSTD", "PREDICTOR": "YES", "LEVEL": "1"},
     "lzw": {"COMPRESS": "LZW", "PREDICTOR": "YES"},
 }
-COG_BLOCKSIZE = 512
+COG_BLOCKSIZE = TILE  # tile side of outputs of runs with chunks of 512 px or more
 PARTIAL_SUFFIX = ".partial"
+_ASSEMBLY_THREADS = 2
+_COMPRESSED_BOUND = {"deflate": 1.01, "zstd": 1.01, "lzw": 1.6}  # worst-case growth
 
 
-def block_path(work_dir: Path, bi: int, bj: int) -> Path:
-    return work_dir / "blocks" / f"b{bi:05d}_{bj:05d}.tif"
+def tile_size(chunk: int) -> int:
+    """COG tile side for a chunk: 512, or the chunk itself when it is smaller."""
+    return min(chunk, TILE)
 
 
-def write_block(path: Path, data: np.ndarray, grid: TargetGrid, window: Window) -> None:
-    """Write one block (bands, rows, cols) float32, atomically (temporary name, then rename)."""
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(path.name + f".{os.getpid()}.{id(data)}{PARTIAL_SUFFIX}")
-    profile = {
-        "driver": "GTiff",
-        "width": int(window.width),
-        "height": int(window.height),
-        "count": int(data.shape[0]),
-        "dtype": "float32",
-        "crs": grid.crs,
-        "transform": grid.window_transform(window),
-        "nodata": float("nan"),
-        "interleave": "band",
-        "BIGTIFF": "IF_SAFER",
-    }
-    with rasterio.open(tmp, "w", **profile) as dst:
-        dst.write(data.astype(np.float32, copy=False))
-    os.replace(tmp, path)
+def block_size(chunk: int) -> int:
+    """Work-block side: the chunk, rounded up to whole tiles (no tile spans two tasks)."""
+    tile = tile_size(chunk)
+    return -(-chunk // tile) * tile
 
 
-@dataclass(frozen=True)
-class BandSpec:
-    """One output band: its band number in the block files, description and tags."""
-
-    block_band: int  # 1-based band in each block file
-    description: str
-    tags: dict[str, str]
-
-
-def _vrt_xml(
-    grid: TargetGrid,
-    blocks: Sequence[tuple[Window, Path]],
-    bands: Sequence[BandSpec],
-    *,
-    dtype: str,
-    nodata: float,
-    units: str,
-    tags: dict[str, str],
-    overviews: Sequence[str] = (),
-) -> str:
-    """VRT mosaic of the block files; ``overviews`` are GDAL dataset names, one per level,
-    whose band i is the overview of band i (referenced explicitly, see :func:`write_cog`)."""
-    a, b, c, d, e, f = grid.transform
-    gdal_type = {"float32": "Float32", "uint8": "Byte"}[dtype]
-    nodata_txt = "nan" if isinstance(nodata, float) and math.isnan(nodata) else repr(nodata)
-
-    def mdi(items: dict[str, str]) -> str:
-        inner = "".join(f'<MDI key="{escape(k)}">{escape(str(v))}</MDI>' for k, v in items.items())
-        return f"<Metadata>{inner}</Metadata>"
-
-    out = [
-        f'<VRTDataset rasterXSize="{grid.width}" rasterYSize="{grid.height}">',
-        f"<SRS>{escape(grid.crs_wkt)}</SRS>",
-        f"<GeoTransform>{c!r}, {a!r}, {b!r}, {f!r}, {d!r}, {e!r}</GeoTransform>",
-        mdi(tags),
-    ]
-    for i, band in enumerate(bands, start=1):
-        out.append(f'<VRTRasterBand dataType="{gdal_type}" band="{i}">')
-        out.append(f"<Description>{escape(band.description)}</Description>")
-        out.append(f"<NoDataValue>{nodata_txt}</NoDataValue>")
-        out.append(f"<UnitType>{escape(units)}</UnitType>")
-        out.append(mdi(band.tags))
-        for window, path in blocks:
-            w, h = int(window.width), int(window.height)
-            out.append(
-                "<SimpleSource>"
-                f'<SourceFilename relativeToVRT="0">{escape(str(path))}</SourceFilename>'
-                f"<SourceBand>{band.block_band}</SourceBand>"
-                f'<SourceProperties RasterXSize="{w}" RasterYSize="{h}" DataType="Float32" '
-                f'BlockXSize="{w}" BlockYSize="1"/>'
-                f'<SrcRect xOff="0" yOff="0" xSize="{w}" ySize="{h}"/>'
-                f'<DstRect xOff="{int(window.col_off)}" yOff="{int(window.row_off)}" '
-                f'xSize="{w}" ySize="{h}"/>'
-                "</SimpleSource>"
-            )
-        for name in overviews:
-            out.append(f'<Overview><SourceFilename relativeToVRT="0">{escape(name)}'
-                       f"</SourceFilename><SourceBand>{i}</SourceBand></Overview>")
-        out.append("</VRTRasterBand>")
-    out.append("</VRTDataset>")
-    return "\n".join(out)
+def tile_codec(dtype: str, compression: str, coded: bool, tile: int = TILE) -> TileCodec:
+    """The tile codec of an output: nodata NaN (floats) or 0 (classes), nearest overviews
+    for classes and coded maps (codes must not be averaged with values)."""
+    level = int(COMPRESSION_OPTIONS[compression].get("LEVEL", 1))
+    nodata = 0.0 if dtype == "uint8" else float("nan")
+    return TileCodec(dtype=dtype, nodata=nodata, compression=compression, level=level,
+                     nearest=coded or dtype == "uint8", tile=tile)
 
 
 def overview_count(width: int, height: int, smallest: int = 256) -> int:
@@ -139,74 +81,118 @@ def overview_count(width: int, height: int, smallest: int = 256) -> int:
     return max(1, math.ceil(math.log2(max(side / smallest, 1.0))))
 
 
+def block_path(work_dir: Path, bi: int, bj: int) -> Path:
+    return work_dir / "blocks" / f"b{bi:05d}_{bj:05d}.tiles"
+
+
+def _tile_windows(window: Window, tile: int) -> Iterator[tuple[int, int, slice, slice]]:
+    """Grid tile (row, col) and block-local slices of every tile in a tile-aligned block."""
+    r0, c0 = int(window.row_off), int(window.col_off)
+    h, w = int(window.height), int(window.width)
+    if r0 % tile or c0 % tile:
+        raise ValueError(f"block at row {r0}, col {c0} is not aligned to {tile} px tiles")
+    for y in range(0, h, tile):
+        for x in range(0, w, tile):
+            yield ((r0 + y) // tile, (c0 + x) // tile, slice(y, min(y + tile, h)),
+                   slice(x, min(x + tile, w)))
+
+
+def write_block(path: Path, outputs: dict[str, np.ndarray], codecs: dict[str, TileCodec],
+                window: Window, levels: int) -> None:
+    """Compress one block's outputs (name -> (bands, rows, cols)) into its tile store."""
+    entries: dict[str, bytes | np.ndarray] = {}
+    for name, data in outputs.items():
+        codec = codecs[name]
+        for r, c, rows, cols in _tile_windows(window, codec.tile):
+            tile = data[:, rows, cols]
+            entries[f"{name}/{r}/{c}"] = codec.encode(tile)
+            for k, piece in enumerate(overview_pieces(tile, levels, codec.nearest), 1):
+                entries[f"{name}/{r}/{c}/{k}"] = piece
+    write_tile_store(path, entries)
+
+
+def _pipelined(items: Iterable, fn: Callable, depth: int = 4) -> Iterator:
+    """``map(fn, items)`` on a small thread pool, in order, at most ``depth`` ahead."""
+    with ThreadPoolExecutor(_ASSEMBLY_THREADS, thread_name_prefix="geothermmap-cog") as ex:
+        pending: deque = deque()
+        for item in items:
+            pending.append(ex.submit(fn, item))
+            if len(pending) >= depth:
+                yield pending.popleft().result()
+        while pending:
+            yield pending.popleft().result()
+
+
 def write_cog(
     out_path: Path,
-    work_dir: Path,
+    name: str,
     grid: TargetGrid,
     blocks: Sequence[tuple[Window, Path]],
-    bands: Sequence[BandSpec],
+    descriptions: Sequence[str],
+    band_tags: Sequence[dict[str, str]],
+    codec: TileCodec,
     *,
-    dtype: str = "float32",
-    nodata: float = float("nan"),
     units: str = "",
     tags: dict[str, str] | None = None,
-    compression: str = "deflate",
-    num_threads: int | str = "ALL_CPUS",
-    coded: bool = False,
+    levels: int | None = None,
 ) -> Path:
-    """Assemble block files into one COG at ``out_path`` (atomic: temp name, then rename).
+    """Assemble output ``name`` from the blocks' tile stores into one COG at ``out_path``.
 
-    ``coded``: the map holds code values (e.g. -1 = frozen at depth) among its numbers, so
-    its overviews take the nearest value instead of averaging codes with depths.
-
-    Two passes over the block files, both by GDAL: (1) the overviews of the VRT mosaic,
-    written uncompressed next to it (``.vrt.ovr``), all levels in one pass; (2) one COG
-    copy that compresses the full-resolution image from the VRT and the overviews from the
-    ``.ovr`` (``OVERVIEWS=FORCE_USE_EXISTING``). Every pixel is compressed exactly once.
-    ``num_threads`` is passed to GDAL (``GDAL_NUM_THREADS`` and the COG ``NUM_THREADS``):
-    the calls hold the Python GIL, so parallelism comes from GDAL's own threads.
+    Atomic: written under a temporary name, renamed into place when complete.
     """
-    vrt_path = work_dir / f"{out_path.stem}.vrt"
-    ovr_path = Path(f"{vrt_path}.ovr")
-    ovr_path.unlink(missing_ok=True)  # never reuse overviews of an earlier attempt
-    xml = dict(dtype=dtype, nodata=nodata, units=units, tags=tags or {})
-    vrt_path.write_text(_vrt_xml(grid, blocks, bands, **xml), encoding="utf-8")
+    n_bands = len(descriptions)
+    tile = codec.tile
+    if levels is None:
+        levels = min(overview_count(grid.width, grid.height), codec.max_levels)
+    layout = CogLayout(grid.width, grid.height, n_bands, levels, tile)
+    profile = {"width": grid.width, "height": grid.height, "count": n_bands,
+               "dtype": codec.dtype, "crs": grid.crs, "transform": grid.affine,
+               "nodata": codec.nodata}
+    copied = template_tags(profile, tile, descriptions, band_tags, units, tags or {})
+    where: dict[tuple[int, int], Path] = {}
+    for window, path in blocks:
+        for r, c, _, _ in _tile_windows(window, tile):
+            where[r, c] = path
+    reader = TileStoreReader()
+    itemsize = np.dtype(codec.dtype).itemsize
+    tile_rows, tile_cols = layout.tiles(0)
+
+    def base_tiles() -> Iterator[bytes]:
+        for r in range(tile_rows):
+            for c in range(tile_cols):
+                yield reader.read(where[r, c], f"{name}/{r}/{c}")
+
+    def composed(k: int) -> Iterator[np.ndarray]:
+        """Level-k tiles, each composed from the pieces of the 2**k x 2**k tiles below."""
+        f = 2**k
+        side = tile // f
+        width_k, height_k = layout.shapes[k]
+        rows_k, cols_k = layout.tiles(k)
+        for tr in range(rows_k):
+            for tc in range(cols_k):
+                h = min(tile, height_k - tr * tile)
+                w = min(tile, width_k - tc * tile)
+                out = np.empty((n_bands, h, w), np.float32)
+                out[...] = codec.nodata
+                for r in range(tr * f, min((tr + 1) * f, tile_rows)):
+                    for c in range(tc * f, min((tc + 1) * f, tile_cols)):
+                        piece = reader.read(where[r, c], f"{name}/{r}/{c}/{k}")
+                        y, x = (r - tr * f) * side, (c - tc * f) * side
+                        out[:, y:y + piece.shape[1], x:x + piece.shape[2]] = piece
+                yield out
+
+    def level_tiles(k: int) -> Iterable[bytes]:
+        return base_tiles() if k == 0 else _pipelined(composed(k), codec.encode)
+
+    base_bytes = sum(reader.length(where[r, c], f"{name}/{r}/{c}")
+                     for r in range(tile_rows) for c in range(tile_cols))
+    n_ovr = sum(layout.tiles(k)[0] * layout.tiles(k)[1] for k in range(1, levels + 1))
+    bound = base_bytes + int(n_ovr * (tile * tile * n_bands * itemsize
+                                      * _COMPRESSED_BOUND[codec.compression] + 1024))
     tmp = out_path.with_name(f".{out_path.stem}{PARTIAL_SUFFIX}.tif")
-    options = dict(COMPRESSION_OPTIONS[compression])
-    if dtype == "uint8":
-        options["PREDICTOR"] = "NO"
-    resampling = Resampling.nearest if dtype == "uint8" or coded else Resampling.average
-    factors = [2**k for k in range(1, overview_count(grid.width, grid.height) + 1)]
-    # Pass 1: GDAL builds all levels in one pass over the mosaic (the COG driver's own
-    # overview generation re-reads the VRT sources for every level: 4x slower). One GDAL
-    # thread: with ALL_CPUS this pass took 1.5x the wall time and 2.8x the CPU (8192^2).
-    with rasterio.Env(GDAL_NUM_THREADS="1", COMPRESS_OVERVIEW="NONE",
-                      INTERLEAVE_OVERVIEW="BAND", BIGTIFF_OVERVIEW="IF_SAFER",
-                      GDAL_TIFF_OVR_BLOCKSIZE=str(COG_BLOCKSIZE)):
-        with rasterio.open(vrt_path, "r+") as vrt:
-            vrt.build_overviews(factors, resampling)
-    # Reference the levels explicitly: GDAL finds an external .ovr by listing the folder,
-    # which GDAL_DISABLE_READDIR_ON_OPEN (set because of the many block files) skips.
-    levels = [f"GTIFF_DIR:{k}:{ovr_path}" for k in range(1, len(factors) + 1)]
-    vrt_path.write_text(_vrt_xml(grid, blocks, bands, overviews=levels, **xml),
-                        encoding="utf-8")
-    with rasterio.open(vrt_path) as vrt:  # the .ovr holds the levels in factor order
-        if vrt.overviews(1) != factors:
-            raise RuntimeError(f"unexpected overview layout in {ovr_path}: "
-                               f"{vrt.overviews(1)} instead of {factors}")
-    # Pass 2: one compressing copy of the full-resolution image and of those overviews.
-    with rasterio.Env(GDAL_NUM_THREADS=str(num_threads)):
-        rasterio.shutil.copy(
-            str(vrt_path),
-            str(tmp),
-            driver="COG",
-            BLOCKSIZE=str(COG_BLOCKSIZE),
-            OVERVIEWS="FORCE_USE_EXISTING",
-            NUM_THREADS=str(num_threads),
-            BIGTIFF="IF_SAFER",
-            **options,
-        )
-    os.replace(tmp, out_path)
-    vrt_path.unlink(missing_ok=True)
-    ovr_path.unlink(missing_ok=True)
+    try:
+        write_cog_from_tiles(tmp, layout, codec, copied, level_tiles, bound)
+    finally:
+        reader.close()
+    tmp.replace(out_path)
     return out_path
