@@ -15,6 +15,7 @@ import pytest
 import rasterio
 from rasterio.enums import Resampling
 from rasterio.warp import reproject
+from rio_cogeo.cogeo import cog_validate
 
 from geothermmap import run_recipe
 from geothermmap.outputs import OUTPUTS
@@ -53,6 +54,9 @@ def test_outputs_are_cogs_on_the_target_grid(same_grid_case, tmp_path):
             assert src.compression is not None
             assert src.overviews(1), "COG must carry overviews"
             assert src.nodata is not None and np.isnan(src.nodata)
+        valid, errors, _ = cog_validate(str(path))  # rio-cogeo's COG layout rules
+        assert valid and not errors, (name, errors)
+        with rasterio.open(path) as src:
             tags = src.tags()
             assert tags["units"] == OUTPUTS[name].units and tags["description"]
             if OUTPUTS[name].per_depth:

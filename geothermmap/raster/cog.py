@@ -125,34 +125,27 @@ class TileCodec:
 
 
 @njit(cache=True, nogil=True)
-def _halve_mean(total, count):
-    """2 x 2 sums of (bands, rows, cols) sums and counts; odd edges keep their remainder."""
-    bands, rows, cols = total.shape
-    r2 = (rows + 1) // 2
-    c2 = (cols + 1) // 2
-    out_t = np.zeros((bands, r2, c2))
-    out_n = np.zeros((bands, r2, c2))
+def _halve(total, count, tile, first):
+    """2 x 2 sums of valid values and their counts; odd edges keep their remainder.
+
+    ``first``: sum the (bands, rows, cols) values of ``tile`` themselves, NaN left out;
+    else sum the level below's ``total`` and ``count``.
+    """
+    bands, rows, cols = tile.shape if first else total.shape
+    out_t = np.zeros((bands, (rows + 1) // 2, (cols + 1) // 2))
+    out_n = np.zeros((bands, (rows + 1) // 2, (cols + 1) // 2))
     for b in range(bands):
         for i in range(rows):
             for j in range(cols):
-                out_t[b, i // 2, j // 2] += total[b, i, j]
-                out_n[b, i // 2, j // 2] += count[b, i, j]
+                if first:
+                    v = np.float64(tile[b, i, j])
+                    if not math.isnan(v):
+                        out_t[b, i // 2, j // 2] += v
+                        out_n[b, i // 2, j // 2] += 1.0
+                else:
+                    out_t[b, i // 2, j // 2] += total[b, i, j]
+                    out_n[b, i // 2, j // 2] += count[b, i, j]
     return out_t, out_n
-
-
-@njit(cache=True, nogil=True)
-def _valid_sum_count(tile):
-    total = np.zeros(tile.shape)
-    count = np.zeros(tile.shape)
-    bands, rows, cols = tile.shape
-    for b in range(bands):
-        for i in range(rows):
-            for j in range(cols):
-                v = tile[b, i, j]
-                if not math.isnan(v):
-                    total[b, i, j] = v
-                    count[b, i, j] = 1.0
-    return total, count
 
 
 def overview_pieces(tile: np.ndarray, levels: int, nearest: bool) -> list[np.ndarray]:
@@ -175,9 +168,10 @@ def overview_pieces(tile: np.ndarray, levels: int, nearest: bool) -> list[np.nda
             ci = np.minimum(np.arange(0, cols, f) + f // 2, cols - 1)
             pieces.append(np.ascontiguousarray(tile[:, ri][:, :, ci], dtype=np.float32))
         return pieces
-    total, count = _valid_sum_count(np.asarray(tile, dtype=np.float64))
-    for _ in range(levels):
-        total, count = _halve_mean(total, count)
+    tile = np.ascontiguousarray(tile, dtype=np.float32)
+    total = count = np.zeros((1, 1, 1))
+    for k in range(levels):
+        total, count = _halve(total, count, tile, k == 0)
         with np.errstate(invalid="ignore", divide="ignore"):
             pieces.append(np.where(count > 0, total / count, np.nan).astype(np.float32))
     return pieces
