@@ -491,6 +491,175 @@ def _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
     return True
 
 
+# Vectorised fast path. Cells are processed in chunks of _CHUNK with small scratch arrays;
+# every pass is one simple loop over the cells of a chunk (harmonics and iterations are
+# outer loops), which LLVM runs on SIMD lanes. A fixed number of Newton steps is followed
+# by a check that proves the result (see _chunk_newton); a cell that fails it is redone
+# by the scalar path above (_extrema, _frost_cell), so the fast path changes speed only.
+#
+# Frame of the fast path: at depth z, with r = z / d and phi_1 the surface phase of the
+# annual harmonic (a_1 = A_1 cos phi_1, b_1 = A_1 sin phi_1), the annual harmonic peaks at
+# w t = phi_1 + r. Writing w t = phi_1 + r + u, harmonic n at depth is Re(D_n exp(i n u))
+# with
+#     D_n = (a_n - i b_n) exp(i n phi_1) exp(-sqrt(n) r) exp(i (n - sqrt(n)) r),
+# so D_1 = A_1 exp(-r) is real and exp(i n phi_1) = ((a_1 + i b_1) / A_1)**n needs no
+# trigonometric call. Per cell and depth the transform costs exp(-sqrt(n) r) for each n
+# and cos, sin of (n - sqrt(n)) r for n >= 2 (three libm calls fewer per harmonic than
+# rotating a_n, b_n by sqrt(n) r). The maximum and minimum start at u = 0 and u = pi,
+# the annual harmonic's peak and trough, where cos u and sin u are exact. Newton steps in
+# u rotate (cos u, sin u) by (cos x, sin x) from Taylor polynomials (|x| <= _ROT_MAX,
+# longer steps are shortened), and cos(n u), sin(n u) follow by angle addition: no
+# trigonometric call inside the iteration.
+
+_CHUNK = 128  # cells per chunk: ~20 scratch arrays of this length stay in L1
+_FAST_ITER = 5  # Newton steps in u for an extremum (typical need: 3-4)
+_FAST_TOL_RAD = 1e-6  # last Newton step [rad] (= 5.8e-5 day); the next error is ~1e-12 rad
+_ROT_MAX = 0.5  # largest Newton step [rad] rotated by the Taylor polynomials below
+_FROST_ITER = 8  # Newton steps in depth (typical need: 3-5)
+_FROST_TIME_ITER = 3  # warm-started Newton steps in u per depth step
+
+
+# Taylor coefficients (-1)**k / (2k + 1)! and (-1)**k / (2k)! of sin and cos
+_S3, _S5, _S7, _S9, _S11, _S13, _S15 = (
+    (-1.0) ** k / math.factorial(2 * k + 1) for k in range(1, 8)
+)
+_C2, _C4, _C6, _C8, _C10, _C12, _C14, _C16 = (
+    (-1.0) ** k / math.factorial(2 * k) for k in range(1, 9)
+)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _rot_cs(x):
+    """cos x and sin x for |x| <= 0.5 by Taylor polynomials to x**16 and x**15.
+
+    Truncation error <= 0.5**17 / 17! < 1e-19: rounding-limited (a few 1e-17).
+    """
+    y = x * x
+    sn = x + x * y * (_S3 + y * (_S5 + y * (_S7 + y * (_S9 + y * (_S11 + y * (_S13 + y * _S15))))))
+    cs = 1.0 + y * (
+        _C2 + y * (_C4 + y * (_C6 + y * (_C8 + y * (_C10 + y * (_C12 + y * (_C14 + y * _C16))))))
+    )
+    return cs, sn
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d):
+    """Per-cell constants of the fast-path frame (see above) for cells i0 .. i0 + n - 1."""
+    h = cos_coef.shape[0]
+    for j in range(n):
+        i = i0 + j
+        a1 = cos_coef[0, i]
+        b1 = sin_coef[0, i]
+        amp1 = math.sqrt(a1 * a1 + b1 * b1)
+        c1 = a1 / amp1
+        s1 = b1 / amp1
+        amp[0, j] = amp1
+        phi1[j] = math.atan2(b1, a1)
+        inv_d[j] = 1.0 / dd[i]
+        pc = c1
+        ps = s1
+        for k in range(1, h):
+            pc, ps = pc * c1 - ps * s1, ps * c1 + pc * s1  # exp(i (k + 1) phi_1)
+            ak = cos_coef[k, i]
+            bk = sin_coef[k, i]
+            er[k, j] = ak * pc + bk * ps  # (a - i b) (pc + i ps)
+            ei[k, j] = ak * ps - bk * pc
+            amp[k, j] = math.sqrt(ak * ak + bk * bk)
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg):
+    """u-frame coefficients al, be at r = z / d per cell, and the fast-path test.
+
+    The fast path applies where ``marg[j] > 0``, the provable single-maximum,
+    single-minimum condition of :func:`_extrema` (``rho = sum_{n>=2} n A_n / A_1 < 1``
+    and ``marg = A_1 sqrt(1 - rho**2) - sum_{n>=2} n**2 A_n > 0``, amplitudes at depth);
+    marg is then a lower bound of |F''| on the arcs ``|sin u| <= rho``.
+    """
+    h = amp.shape[0]
+    for j in range(n):
+        rj = r[j]
+        a1 = amp[0, j] * math.exp(-rj)
+        al[0, j] = a1
+        be[0, j] = 0.0
+        s1 = 0.0
+        s2 = 0.0
+        for k in range(1, h):
+            nn = k + 1.0
+            sq = math.sqrt(nn)
+            ek = math.exp(-sq * rj)
+            x = (nn - sq) * rj
+            cx = math.cos(x)
+            sx = math.sin(x)
+            al[k, j] = (er[k, j] * cx - ei[k, j] * sx) * ek
+            be[k, j] = -(er[k, j] * sx + ei[k, j] * cx) * ek
+            amp_k = amp[k, j] * ek
+            s1 += nn * amp_k
+            s2 += nn * nn * amp_k
+        rho[j] = s1 / a1
+        if a1 > 0.0 and s1 < a1:
+            marg[j] = a1 * math.sqrt(1.0 - (s1 / a1) ** 2) - s2
+        else:
+            marg[j] = -1.0  # also for NaN
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _chunk_newton(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_iter):
+    """``n_iter`` Newton steps on d(sign F)/du from the states (c, s, u) = (cos u, sin u, u).
+
+    Steps longer than _ROT_MAX are shortened to it (a damped step; the state stays exact).
+    Leaves in f the extremum value by the quadratic model of the last step, in (c, s, u)
+    the updated state, and in ok[j] whether the last point is provably within
+    _FAST_TOL_RAD of the extremum sought: sign F'' < 0 there, the point lies on the arc
+    |sin u| <= rho on the side sign cos u > 0, which holds the one critical point of that
+    side, and |F'| < _FAST_TOL_RAD * marg, where marg <= |F''| on the arc (so that the
+    distance to the critical point is at most |F'| / marg).
+    """
+    h = al.shape[0]
+    for it in range(n_iter):
+        for j in range(n):
+            cj = c[j]
+            sj = s[j]
+            a0 = al[0, j]
+            f[j] = a0 * cj
+            f1[j] = -a0 * sj
+            f2[j] = -a0 * cj
+            ck[j] = cj
+            sk[j] = sj
+        for k in range(1, h):
+            nn = k + 1.0
+            for j in range(n):
+                cj = c[j]
+                sj = s[j]
+                ckj = ck[j] * cj - sk[j] * sj
+                skj = sk[j] * cj + ck[j] * sj
+                ck[j] = ckj
+                sk[j] = skj
+                ak = al[k, j]
+                bk = be[k, j]
+                term = ak * ckj + bk * skj
+                f[j] += term
+                f1[j] += nn * (bk * ckj - ak * skj)
+                f2[j] -= nn * nn * term
+        if it == n_iter - 1:
+            for j in range(n):
+                ok[j] = (
+                    sign * f2[j] < 0.0
+                    and abs(f1[j]) < _FAST_TOL_RAD * marg[j]
+                    and sign * c[j] > 0.0
+                    and abs(s[j]) <= rho[j]
+                )
+        for j in range(n):
+            x = min(max(-f1[j] / f2[j], -_ROT_MAX), _ROT_MAX)
+            cd, sd = _rot_cs(x)
+            cj = c[j]
+            sj = s[j]
+            c[j] = cj * cd - sj * sd
+            s[j] = sj * cd + cj * sd
+            u[j] += x
+            f[j] += 0.5 * f1[j] * x
+
+
 @njit(cache=True, nogil=True)
 def _extrema_kernel(mean, cos_coef, sin_coef, dd, depths, m, t_min, t_max, doy_min, doy_max):
     h = cos_coef.shape[0]
@@ -502,21 +671,80 @@ def _extrema_kernel(mean, cos_coef, sin_coef, dd, depths, m, t_min, t_max, doy_m
     a = np.empty(h)
     b = np.empty(h)
     v = np.empty(m)
-    for jd in range(depths.shape[0]):
-        z = depths[jd]
-        for i in range(n_cells):
-            if not _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
-                t_min[jd, i] = np.nan
-                t_max[jd, i] = np.nan
-                doy_min[jd, i] = np.nan
-                doy_max[jd, i] = np.nan
-                continue
-            _coefs_at_depth(cos_coef, sin_coef, i, dd[i], z, a, b)
-            t_hi, f_hi, t_lo, f_lo = _extrema(a, b, ctab, stab, v, dt, w, year)
-            t_max[jd, i] = mean[i] + f_hi
-            t_min[jd, i] = mean[i] + f_lo
-            doy_max[jd, i] = 1.0 + t_hi
-            doy_min[jd, i] = 1.0 + t_lo
+    nc = _CHUNK
+    amp = np.empty((h, nc))
+    er = np.zeros((h, nc))
+    ei = np.zeros((h, nc))
+    al = np.empty((h, nc))
+    be = np.empty((h, nc))
+    phi1 = np.empty(nc)
+    inv_d = np.empty(nc)
+    r = np.empty(nc)
+    rho = np.empty(nc)
+    marg = np.empty(nc)
+    valid = np.empty(nc, dtype=np.bool_)
+    c = np.empty(nc)
+    s = np.empty(nc)
+    u = np.empty(nc)
+    f = np.empty(nc)
+    ck = np.empty(nc)
+    sk = np.empty(nc)
+    f1 = np.empty(nc)
+    f2 = np.empty(nc)
+    ok_hi = np.empty(nc, dtype=np.bool_)
+    ok_lo = np.empty(nc, dtype=np.bool_)
+    c_hi = np.empty(nc)
+    s_hi = np.empty(nc)
+    u_hi = np.empty(nc)
+    f_hi = np.empty(nc)
+    for i0 in range(0, n_cells, nc):
+        n = min(nc, n_cells - i0)
+        for j in range(n):
+            valid[j] = _cell_is_valid(mean, cos_coef, sin_coef, dd, i0 + j)
+        if h > 1:
+            _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d)
+        for jd in range(depths.shape[0]):
+            z = depths[jd]
+            if h > 1:
+                for j in range(n):
+                    r[j] = z * inv_d[j] if z > 0.0 else 0.0
+                _chunk_transform(r, n, amp, er, ei, al, be, rho, marg)
+                for j in range(n):
+                    c_hi[j] = 1.0
+                    s_hi[j] = 0.0
+                    u_hi[j] = 0.0
+                    c[j] = -1.0
+                    s[j] = 0.0
+                    u[j] = math.pi
+                _chunk_newton(n, 1.0, al, be, rho, marg, c_hi, s_hi, u_hi, f_hi, ok_hi,
+                              ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
+                _chunk_newton(n, -1.0, al, be, rho, marg, c, s, u, f, ok_lo,
+                              ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
+            for j in range(n):
+                i = i0 + j
+                if not valid[j]:
+                    t_min[jd, i] = np.nan
+                    t_max[jd, i] = np.nan
+                    doy_min[jd, i] = np.nan
+                    doy_max[jd, i] = np.nan
+                    continue
+                if h > 1 and marg[j] > 0.0 and ok_hi[j] and ok_lo[j]:
+                    base = phi1[j] + r[j]
+                    t_hi = ((base + u_hi[j]) / w) % year
+                    t_lo = ((base + u[j]) / w) % year
+                    if t_hi >= year:
+                        t_hi -= year
+                    if t_lo >= year:
+                        t_lo -= year
+                    vh = f_hi[j]
+                    vl = f[j]
+                else:
+                    _coefs_at_depth(cos_coef, sin_coef, i, dd[i], z, a, b)
+                    t_hi, vh, t_lo, vl = _extrema(a, b, ctab, stab, v, dt, w, year)
+                t_max[jd, i] = mean[i] + vh
+                t_min[jd, i] = mean[i] + vl
+                doy_max[jd, i] = 1.0 + t_hi
+                doy_min[jd, i] = 1.0 + t_lo
 
 
 @njit(cache=True, nogil=True)
@@ -637,7 +865,10 @@ def depth_statistics(
     - if the annual harmonic dominates at that depth (``rho = sum_{n>=2} n A_n / A_1 < 1``
       and ``A_1 sqrt(1 - rho**2) > sum_{n>=2} n**2 A_n``), the cycle provably has exactly
       one maximum and one minimum, each within ``asin(rho) / w`` of the annual harmonic's
-      peak and trough; each is found by bracketed Newton iterations on dT/dt;
+      peak and trough; each is found by Newton iterations on dT/dt started there
+      (vectorised over cells, no trigonometric call per step), accepted only where the
+      last point is proven within 1e-6 rad of that extremum (on its arc, right curvature,
+      ``|T'| < 1e-6 min|T''|``), else redone by Newton/bisection on the bracket;
     - otherwise the cycle is sampled at max(48, 12 H) times over the year, every sampled
       local extremum that could hold the global one (within the curvature bound
       ``0.5 max|T''| dt**2``) is refined by Newton iterations on dT/dt, and the best kept.
