@@ -568,8 +568,10 @@ def _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d):
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg):
+def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo):
     """u-frame coefficients al, be at r = z / d per cell, and the fast-path test.
+
+    Cells with ``todo[j]`` false are skipped (their outputs keep stale values).
 
     The fast path applies where ``marg[j] > 0``, the provable single-maximum,
     single-minimum condition of :func:`_extrema` (``rho = sum_{n>=2} n A_n / A_1 < 1``
@@ -578,6 +580,8 @@ def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg):
     """
     h = amp.shape[0]
     for j in range(n):
+        if not todo[j]:
+            continue
         rj = r[j]
         a1 = amp[0, j] * math.exp(-rj)
         al[0, j] = a1
@@ -708,7 +712,7 @@ def _extrema_kernel(mean, cos_coef, sin_coef, dd, depths, m, t_min, t_max, doy_m
             if h > 1:
                 for j in range(n):
                     r[j] = z * inv_d[j] if z > 0.0 else 0.0
-                _chunk_transform(r, n, amp, er, ei, al, be, rho, marg)
+                _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, valid)
                 for j in range(n):
                     c_hi[j] = 1.0
                     s_hi[j] = 0.0
@@ -769,6 +773,69 @@ def _min_and_slope(cos_coef, sin_coef, i, d, z, a, b, ctab, stab, v, dt, w, year
 
 
 @njit(cache=True, nogil=True)
+def _frost_cell(mean, cos_coef, sin_coef, dd, i, a, b, ctab, stab, v, dt, w, year):
+    """Frost depth of cell i, scalar path: every depth step runs the general extremum search."""
+    h = cos_coef.shape[0]
+    if not _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
+        return np.nan
+    mu = mean[i]
+    d = dd[i]
+    if mu <= 0.0:
+        return FROST_PERENNIAL
+    amp_sum = 0.0
+    for k in range(h):
+        amp_sum += math.hypot(cos_coef[k, i], sin_coef[k, i])
+    a1 = math.hypot(cos_coef[0, i], sin_coef[0, i])
+    if h == 1:
+        return d * math.log(a1 / mu) if a1 > mu else FROST_NONE
+    if amp_sum <= mu:  # even the envelope stays above 0 degC
+        return FROST_NONE
+    f0, slope = _min_and_slope(cos_coef, sin_coef, i, d, 0.0, a, b, ctab, stab, v, dt, w, year)
+    if mu + f0 >= 0.0:
+        return FROST_NONE
+    # Bracket: min_t T(0) < 0; at z_hi the envelope sum_n A_n exp(-z/d_n) <= sum_n A_n
+    # exp(-z/d) = mu, so min_t T(z_hi) >= 0. min_t T(z) is non-decreasing in z
+    # (maximum principle), so the root is the deepest depth reaching 0 degC.
+    lo = 0.0
+    hi = d * math.log(amp_sum / mu)
+    z = d * math.log(a1 / mu) if a1 > mu else 0.5 * hi
+    if not (lo < z < hi):
+        z = 0.5 * (lo + hi)
+    for _ in range(_DEPTH_MAX_ITER):
+        f, slope = _min_and_slope(cos_coef, sin_coef, i, d, z, a, b, ctab, stab, v, dt, w, year)
+        g = mu + f
+        if g <= 0.0:
+            lo = z
+        else:
+            hi = z
+        zn = z - g / slope if slope > 0.0 else -1.0
+        if not (lo < zn < hi):
+            zn = 0.5 * (lo + hi)
+        converged = abs(zn - z) < _DEPTH_TOL_M or hi - lo < _DEPTH_TOL_M
+        z = zn
+        if converged:
+            break
+    return z
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _chunk_slope(n, al, be, c, s, inv_d, slope):
+    """d/dz at fixed time of the oscillating part at the states (c, s) = (cos u, sin u)."""
+    h = al.shape[0]
+    for j in range(n):
+        slope[j] = inv_d[j] * al[0, j] * (s[j] - c[j])
+        ck = c[j]
+        sk = s[j]
+        for k in range(1, h):
+            ck, sk = ck * c[j] - sk * s[j], sk * c[j] + ck * s[j]
+            ak = al[k, j]
+            bk = be[k, j]
+            slope[j] += math.sqrt(k + 1.0) * inv_d[j] * (
+                (ak * sk - bk * ck) - (ak * ck + bk * sk)
+            )
+
+
+@njit(cache=True, nogil=True)
 def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
     h = cos_coef.shape[0]
     year = YEAR_DAYS
@@ -778,52 +845,149 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
     a = np.empty(h)
     b = np.empty(h)
     v = np.empty(m)
-    for i in range(mean.shape[0]):
-        if not _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
-            out[i] = np.nan
-            continue
-        mu = mean[i]
-        d = dd[i]
-        if mu <= 0.0:
-            out[i] = FROST_PERENNIAL
-            continue
-        amp_sum = 0.0
-        for k in range(h):
-            amp_sum += math.hypot(cos_coef[k, i], sin_coef[k, i])
-        a1 = math.hypot(cos_coef[0, i], sin_coef[0, i])
-        if h == 1:
-            out[i] = d * math.log(a1 / mu) if a1 > mu else FROST_NONE
-            continue
-        if amp_sum <= mu:  # even the envelope stays above 0 degC
-            out[i] = FROST_NONE
-            continue
-        f0, slope = _min_and_slope(cos_coef, sin_coef, i, d, 0.0, a, b, ctab, stab, v, dt, w, year)
-        if mu + f0 >= 0.0:
-            out[i] = FROST_NONE
-            continue
-        # Bracket: min_t T(0) < 0; at z_hi the envelope sum_n A_n exp(-z/d_n) <= sum_n A_n
-        # exp(-z/d) = mu, so min_t T(z_hi) >= 0. min_t T(z) is non-decreasing in z
-        # (maximum principle), so the root is the deepest depth reaching 0 degC.
-        lo = 0.0
-        hi = d * math.log(amp_sum / mu)
-        z = d * math.log(a1 / mu) if a1 > mu else 0.5 * hi
-        if not (lo < z < hi):
-            z = 0.5 * (lo + hi)
-        for _ in range(_DEPTH_MAX_ITER):
-            f, slope = _min_and_slope(cos_coef, sin_coef, i, d, z, a, b, ctab, stab, v, dt, w, year)
-            g = mu + f
-            if g <= 0.0:
-                lo = z
-            else:
-                hi = z
-            zn = z - g / slope if slope > 0.0 else -1.0
-            if not (lo < zn < hi):
-                zn = 0.5 * (lo + hi)
-            converged = abs(zn - z) < _DEPTH_TOL_M or hi - lo < _DEPTH_TOL_M
-            z = zn
-            if converged:
+    n_cells = mean.shape[0]
+    if h == 1:
+        for i in range(n_cells):
+            out[i] = _frost_cell(mean, cos_coef, sin_coef, dd, i, a, b, ctab, stab, v, dt, w, year)
+        return
+    nc = _CHUNK
+    amp = np.empty((h, nc))
+    er = np.zeros((h, nc))
+    ei = np.zeros((h, nc))
+    al = np.empty((h, nc))
+    be = np.empty((h, nc))
+    phi1 = np.empty(nc)
+    inv_d = np.empty(nc)
+    r = np.empty(nc)
+    rho = np.empty(nc)
+    marg = np.empty(nc)
+    c = np.empty(nc)
+    s = np.empty(nc)
+    u = np.empty(nc)
+    f = np.empty(nc)
+    ck = np.empty(nc)
+    sk = np.empty(nc)
+    f1 = np.empty(nc)
+    f2 = np.empty(nc)
+    ok = np.empty(nc, dtype=np.bool_)
+    slope = np.empty(nc)
+    z = np.empty(nc)
+    lo = np.empty(nc)
+    hi = np.empty(nc)
+    # state per cell: 0 finished (out written), 1 depth search on the fast path, 2 depth
+    # search with the general extremum search (once the fast path failed for the cell)
+    state = np.empty(nc, dtype=np.int8)
+    todo = np.empty(nc, dtype=np.bool_)
+    for i0 in range(0, n_cells, nc):
+        n = min(nc, n_cells - i0)
+        _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d)
+        n_run = 0
+        for j in range(n):
+            i = i0 + j
+            state[j] = 0
+            r[j] = 0.0
+            c[j] = -1.0
+            s[j] = 0.0
+            u[j] = math.pi
+            if not _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
+                out[i] = np.nan
+                continue
+            mu = mean[i]
+            if mu <= 0.0:
+                out[i] = FROST_PERENNIAL
+                continue
+            amp_sum = 0.0
+            for k in range(h):
+                amp_sum += math.hypot(cos_coef[k, i], sin_coef[k, i])
+            if amp_sum <= mu:  # even the envelope stays above 0 degC
+                out[i] = FROST_NONE
+                continue
+            a1 = math.hypot(cos_coef[0, i], sin_coef[0, i])
+            hi[j] = dd[i] * math.log(amp_sum / mu)
+            lo[j] = 0.0
+            zj = dd[i] * math.log(a1 / mu) if a1 > mu else 0.5 * hi[j]
+            if not (0.0 < zj < hi[j]):
+                zj = 0.5 * hi[j]
+            z[j] = zj
+            state[j] = 1
+            n_run += 1
+        if n_run > 0:
+            # surface minimum: frost only where mu + min_t T(0) < 0
+            for j in range(n):
+                todo[j] = state[j] == 1
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo)
+            _chunk_newton(n, -1.0, al, be, rho, marg, c, s, u, f, ok,
+                          ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
+            for j in range(n):
+                if state[j] != 1:
+                    continue
+                mu = mean[i0 + j]
+                if marg[j] > 0.0 and ok[j]:
+                    if mu + f[j] >= 0.0:
+                        out[i0 + j] = FROST_NONE
+                        state[j] = 0
+                        n_run -= 1
+                    continue
+                # no proven surface minimum: frost is certain if T at the annual trough
+                # (u = pi), an upper bound of the minimum, is below 0 degC; else ask the
+                # general search
+                f_pi = -amp[0, j]
+                for k in range(1, h):
+                    f_pi += er[k, j] if k % 2 == 1 else -er[k, j]
+                if not mu + f_pi < 0.0:
+                    i = i0 + j
+                    f0, _ = _min_and_slope(cos_coef, sin_coef, i, dd[i], 0.0, a, b,
+                                           ctab, stab, v, dt, w, year)  # fmt: skip
+                    if mu + f0 >= 0.0:
+                        out[i] = FROST_NONE
+                        state[j] = 0
+                        n_run -= 1
+                c[j] = -1.0
+                s[j] = 0.0
+                u[j] = math.pi
+        for it in range(_FROST_ITER):
+            if n_run == 0:
                 break
-        out[i] = z
+            for j in range(n):
+                todo[j] = state[j] == 1
+                r[j] = z[j] * inv_d[j] if todo[j] else 0.0
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo)
+            # the first two depth steps move the minimiser most; later ones start close
+            n_iter = _FAST_ITER if it < 2 else _FROST_TIME_ITER
+            _chunk_newton(n, -1.0, al, be, rho, marg, c, s, u, f, ok,
+                          ck, sk, f1, f2, n_iter)  # fmt: skip
+            _chunk_slope(n, al, be, c, s, inv_d, slope)
+            for j in range(n):
+                if state[j] == 0:
+                    continue
+                if state[j] == 1 and marg[j] > 0.0 and ok[j]:
+                    fj = f[j]
+                    sj = slope[j]
+                else:  # no proven minimum at this depth: general search from now on
+                    state[j] = 2
+                    i = i0 + j
+                    fj, sj = _min_and_slope(cos_coef, sin_coef, i, dd[i], z[j], a, b,
+                                            ctab, stab, v, dt, w, year)  # fmt: skip
+                # safeguarded Newton step in depth, as in _frost_cell
+                g = mean[i0 + j] + fj
+                zj = z[j]
+                if g <= 0.0:
+                    lo[j] = zj
+                else:
+                    hi[j] = zj
+                zn = zj - g / sj if sj > 0.0 else -1.0
+                if not (lo[j] < zn < hi[j]):
+                    zn = 0.5 * (lo[j] + hi[j])
+                z[j] = zn
+                if abs(zn - zj) < _DEPTH_TOL_M or hi[j] - lo[j] < _DEPTH_TOL_M:
+                    out[i0 + j] = zn
+                    state[j] = 0
+                    n_run -= 1
+        for j in range(n):  # not converged in _FROST_ITER steps: scalar path from scratch
+            if state[j] != 0:
+                i = i0 + j
+                out[i] = _frost_cell(mean, cos_coef, sin_coef, dd, i, a, b,
+                                     ctab, stab, v, dt, w, year)  # fmt: skip
 
 
 # --------------------------------------------------------------------------------------
@@ -960,7 +1124,12 @@ def frost_depth_conduction(
       ``z_hi = d ln(sum_n A_n / mean)``, an upper bound of the root of the envelope
       ``sum_n A_n exp(-z / d_n) = mean`` (because d_n <= d); the slope of the yearly
       minimum with depth is dT/dz at the minimising time (envelope theorem). Tolerance
-      1e-6 m (contract: 1 mm).
+      1e-6 m (contract: 1 mm). Each depth step needs the yearly minimum at that depth:
+      where the annual harmonic provably dominates (see :func:`depth_statistics`) it
+      comes from Newton iterations in time started at the previous step's minimiser and
+      accepted only with the same proof check; otherwise from the general search. The
+      surface minimum is only needed where T at the annual trough is >= 0 degC and the
+      fast path cannot prove it (T there bounds the minimum from above).
 
     Parameters
     ----------
