@@ -15,7 +15,7 @@ import os
 import shutil
 import threading
 import time
-from collections.abc import Callable
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -49,6 +49,7 @@ from geothermmap.raster.inputs import (
 )
 from geothermmap.raster.writer import (
     PARTIAL_SUFFIX,
+    TilePyramid,
     block_path,
     block_size,
     overview_count,
@@ -56,6 +57,7 @@ from geothermmap.raster.writer import (
     tile_size,
     write_block,
     write_cog,
+    write_overview,
 )
 from geothermmap.recipe import (
     DEFAULT_BULK_DENSITY_G_CM3,
@@ -85,6 +87,16 @@ class BlockTask:
     bj: int
     window: tuple[int, int, int, int]  # col_off, row_off, width, height
     path: str
+
+
+@dataclass(frozen=True)
+class OverviewTask:
+    """One overview tile (level k, tile row, tile col) of every output (picklable)."""
+
+    k: int
+    tr: int
+    tc: int
+    pyramid: TilePyramid
 
 
 @dataclass(frozen=True)
@@ -361,6 +373,27 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
     return stats
 
 
+def run_overview(ctx: RunContext, task: OverviewTask, *blocks_done: Any) -> None:
+    """Compress one overview tile of every output; ``blocks_done``: the block tasks it
+    reads (their results, passed only so that the engines order the tasks)."""
+    if CANCELLED.is_set():
+        return
+    if is_tile_store(task.pyramid.overview_store(task.k, task.tr, task.tc)):
+        return  # complete from an earlier attempt (--resume)
+    write_overview(task.pyramid, task.k, task.tr, task.tc, ctx.codecs)
+
+
+def overview_tasks(tasks: list[BlockTask], pyramid: TilePyramid
+                   ) -> list[tuple[OverviewTask, list[int]]]:
+    """Overview tasks, each with the indices of the block tasks it reads."""
+    index = {(t.bi, t.bj): i for i, t in enumerate(tasks)}
+    out = []
+    for k, tr, tc in pyramid.overview_tiles():
+        deps = sorted({index[pyramid.block_of(r, c)] for r, c in pyramid.sources(k, tr, tc)})
+        out.append((OverviewTask(k, tr, tc, pyramid), deps))
+    return out
+
+
 def _partial_stats(a: np.ndarray) -> list[float]:
     v = a[np.isfinite(a)].astype(np.float64)
     if v.size == 0:
@@ -407,8 +440,10 @@ def _combine(parts: list[dict[str, Any]], outputs: tuple[str, ...]) -> tuple[dic
 
 
 def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
-             scheduler: str | None, progress: Callable[[int], None] | None) -> list[dict]:
-    """Run block tasks on the chosen dask engine; results in task order."""
+             scheduler: str | None, progress: Callable[[int], None] | None,
+             overviews: Sequence[tuple[OverviewTask, list[int]]] = ()) -> list[dict]:
+    """Run block tasks, and overview tasks after the blocks they read, on the chosen dask
+    engine; returns the block results in task order."""
     import dask
 
     if scheduler is None and workers is None:
@@ -417,6 +452,8 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
         from dask.callbacks import Callback
 
         delayed = [dask.delayed(run_block, pure=False)(ctx, t) for t in tasks]
+        ovr = [dask.delayed(run_overview, pure=False)(ctx, o, *(delayed[i] for i in deps))
+               for o, deps in overviews]
 
         class _Tick(Callback):
             def _posttask(self, key, result, dsk, state, id):  # noqa: A002
@@ -428,7 +465,8 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
                                   thread_name_prefix="geothermmap")
         try:
             with _Tick():
-                return list(dask.compute(*delayed, scheduler="threads", pool=pool))
+                done = dask.compute(*delayed, *ovr, scheduler="threads", pool=pool)
+                return list(done[:len(delayed)])
         except BaseException:
             CANCELLED.set()
             raise
@@ -451,11 +489,15 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
     try:
         futures = client.map(run_block, [ctx] * len(tasks), tasks, pure=False)
         index = {f.key: i for i, f in enumerate(futures)}
+        futures += [client.submit(run_overview, ctx, o, *(futures[i] for i in deps),
+                                  pure=False) for o, deps in overviews]
         results: list[dict | None] = [None] * len(tasks)
         for fut in as_completed(futures):
-            results[index[fut.key]] = fut.result()
-            if progress is not None:
-                progress(1)
+            result = fut.result()
+            if fut.key in index:
+                results[index[fut.key]] = result
+                if progress is not None:
+                    progress(1)
         return results  # type: ignore[return-value]
     except BaseException:
         client.cancel(futures)
@@ -568,19 +610,22 @@ def run_recipe(
 
             if progress:
                 progress("blocks", 0, len(tasks))
-            parts = _execute(tasks, ctx, workers=workers, scheduler=scheduler, progress=tick)
+            pyramid = TilePyramid(str(work), plan.grid.width, plan.grid.height,
+                                  tile_size(plan.chunk), block_size(plan.chunk),
+                                  ctx.overview_levels)
+            parts = _execute(tasks, ctx, workers=workers, scheduler=scheduler, progress=tick,
+                             overviews=overview_tasks(tasks, pyramid))
             timings["compute_s"] = time.perf_counter() - t1
             summary, counts = _combine(parts, plan.outputs)
             rec["counts"] = counts
             rec["counts"]["uncovered_input_fraction"] = {
                 k: round(1.0 - v, 6) for k, v in plan.coverage.items() if v < 0.999}
             t2 = time.perf_counter()
-            block_files = [(w, block_path(work, bi, bj)) for bi, bj, w in blocks]
             if progress:
                 progress("maps", 0, len(todo))
-            # one output at a time; each assembly compresses its overviews on two threads
+            # one output at a time: a byte copy of tiles the tasks compressed
             for i, name in enumerate(todo, start=1):
-                path = _write_output(plan, name, out, block_files)
+                path = _write_output(plan, name, out, pyramid)
                 entry = record.output_entry(plan, name, path, summary[name])
                 entry["input_corrections"] = {k: counts.get(k, 0) for k in BOUNDS_COUNTERS}
                 rec["outputs"][name] = entry
@@ -658,10 +703,9 @@ def output_tags(plan: RunPlan, name: str) -> dict[str, str]:
     return tags
 
 
-def _write_output(plan: RunPlan, name: str, out: Path, block_files) -> Path:
+def _write_output(plan: RunPlan, name: str, out: Path, pyramid: TilePyramid) -> Path:
     info = OUTPUTS[name]
     descriptions, band_tags = zip(*band_descriptions(plan, name), strict=True)
-    ctx = plan.context
-    return write_cog(out / info.filename, name, plan.grid, block_files, descriptions,
-                     band_tags, ctx.codecs[name], units=info.units,
-                     tags=output_tags(plan, name), levels=ctx.overview_levels)
+    return write_cog(out / info.filename, name, plan.grid, pyramid, descriptions,
+                     band_tags, plan.context.codecs[name], units=info.units,
+                     tags=output_tags(plan, name))

@@ -18,7 +18,15 @@ from rio_cogeo.cogeo import cog_validate
 
 from geothermmap.raster import cog
 from geothermmap.raster.grid import TargetGrid
-from geothermmap.raster.writer import block_path, overview_count, tile_codec, write_block, write_cog
+from geothermmap.raster.writer import (
+    TilePyramid,
+    block_path,
+    overview_count,
+    tile_codec,
+    write_block,
+    write_cog,
+    write_overview,
+)
 
 CRS = "EPSG:32633"
 
@@ -33,22 +41,23 @@ def _field(bands: int, height: int, width: int, seed: int = 1) -> np.ndarray:
 
 
 def _write(tmp_path, data: np.ndarray, codec: cog.TileCodec, chunk: int):
-    """Run the writer the way the pipeline does: tile stores per block, then assembly."""
+    """Run the writer the way the pipeline does: block tile stores, overview tasks, COG."""
     bands, height, width = data.shape
     grid = TargetGrid.from_parts(rasterio.crs.CRS.from_string(CRS),
                                  from_origin(400000, 5000000, 30, 30), width, height)
     levels = min(overview_count(width, height), codec.max_levels)
-    blocks = []
+    pyramid = TilePyramid(str(tmp_path / "work"), width, height, codec.tile, chunk, levels)
     for bi, bj, window in grid.blocks(chunk):
-        path = block_path(tmp_path / "work", bi, bj)
         r, c = int(window.row_off), int(window.col_off)
         h, w = int(window.height), int(window.width)
-        write_block(path, {"x": data[:, r:r + h, c:c + w]}, {"x": codec}, window, levels)
-        blocks.append((window, path))
+        write_block(block_path(tmp_path / "work", bi, bj), {"x": data[:, r:r + h, c:c + w]},
+                    {"x": codec}, window, levels)
+    for k, tr, tc in pyramid.overview_tiles():
+        write_overview(pyramid, k, tr, tc, {"x": codec})
     out = tmp_path / "x.tif"
-    write_cog(out, "x", grid, blocks, [f"depth {i}" for i in range(bands)],
+    write_cog(out, "x", grid, pyramid, [f"depth {i}" for i in range(bands)],
               [{"depth_m": str(i)} for i in range(bands)], codec, units="degC",
-              tags={"caution": "screening estimate"}, levels=levels)
+              tags={"caution": "screening estimate"})
     return out, levels
 
 

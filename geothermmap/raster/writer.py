@@ -12,19 +12,20 @@ and a task that runs twice (a cluster retrying a lost worker) only replaces a st
 same bytes. Work blocks are whole multiples of the tile size, so tiles never straddle
 two tasks.
 
-When all blocks exist, the process that runs the pipeline assembles each output: it
-composes and compresses the overview tiles from the stored pieces (a third of the pixels;
-two threads, the codecs release the GIL) and copies the full-resolution tiles byte for
-byte. On a cluster the workers and the machine that runs ``geothermmap run`` must all see
-the output folder at the same path (a shared filesystem); see ``benchmarks/README.md``.
+Overview tiles are tasks too: each composes one overview tile of every output from the
+stored pieces of the tiles it covers and compresses it into a store of its own, as soon
+as those blocks are done (so the overviews, a third of the pixels, are compressed in
+parallel with the remaining blocks). When all tasks are done, the process that runs the
+pipeline writes each COG by copying every tile byte for byte. On a cluster the workers
+and the machine that runs ``geothermmap run`` must all see the output folder at the same
+path (a shared filesystem); see ``benchmarks/README.md``.
 """
 
 from __future__ import annotations
 
 import math
-from collections import deque
-from collections.abc import Callable, Iterable, Iterator, Sequence
-from concurrent.futures import ThreadPoolExecutor
+from collections.abc import Iterator, Sequence
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -51,8 +52,6 @@ COMPRESSION_OPTIONS = {
 }
 COG_BLOCKSIZE = TILE  # tile side of outputs of runs with chunks of 512 px or more
 PARTIAL_SUFFIX = ".partial"
-_ASSEMBLY_THREADS = 2
-_COMPRESSED_BOUND = {"deflate": 1.01, "zstd": 1.01, "lzw": 1.6}  # worst-case growth
 
 
 def tile_size(chunk: int) -> int:
@@ -111,87 +110,117 @@ def write_block(path: Path, outputs: dict[str, np.ndarray], codecs: dict[str, Ti
     write_tile_store(path, entries)
 
 
-def _pipelined(items: Iterable, fn: Callable, depth: int = 4) -> Iterator:
-    """``map(fn, items)`` on a small thread pool, in order, at most ``depth`` ahead."""
-    with ThreadPoolExecutor(_ASSEMBLY_THREADS, thread_name_prefix="geothermmap-cog") as ex:
-        pending: deque = deque()
-        for item in items:
-            pending.append(ex.submit(fn, item))
-            if len(pending) >= depth:
-                yield pending.popleft().result()
-        while pending:
-            yield pending.popleft().result()
+@dataclass(frozen=True)
+class TilePyramid:
+    """Where the tiles of a run's outputs live (picklable, for cluster workers).
+
+    Full-resolution tile (r, c) is in the tile store of its work block; overview tile
+    (k, tr, tc) is in a store of its own, written by an overview task from the pieces of
+    the 2**k x 2**k full-resolution tiles it covers, as soon as their blocks are done.
+    """
+
+    work_dir: str
+    width: int
+    height: int
+    tile: int
+    block: int  # work-block side, a multiple of ``tile``
+    levels: int
+
+    def layout(self, bands: int) -> CogLayout:
+        return CogLayout(self.width, self.height, bands, self.levels, self.tile)
+
+    def block_of(self, r: int, c: int) -> tuple[int, int]:
+        per = self.block // self.tile
+        return r // per, c // per
+
+    def base_store(self, r: int, c: int) -> Path:
+        return block_path(Path(self.work_dir), *self.block_of(r, c))
+
+    def overview_store(self, k: int, tr: int, tc: int) -> Path:
+        return Path(self.work_dir) / "blocks" / f"o{k}_{tr:05d}_{tc:05d}.tiles"
+
+    def overview_tiles(self) -> list[tuple[int, int, int]]:
+        layout = self.layout(1)
+        return [(k, tr, tc) for k in range(1, self.levels + 1)
+                for tr in range(layout.tiles(k)[0]) for tc in range(layout.tiles(k)[1])]
+
+    def sources(self, k: int, tr: int, tc: int) -> list[tuple[int, int]]:
+        """Full-resolution tiles under overview tile (k, tr, tc)."""
+        rows, cols = self.layout(1).tiles(0)
+        f = 2**k
+        return [(r, c) for r in range(tr * f, min((tr + 1) * f, rows))
+                for c in range(tc * f, min((tc + 1) * f, cols))]
+
+
+def write_overview(pyramid: TilePyramid, k: int, tr: int, tc: int,
+                   codecs: dict[str, TileCodec]) -> None:
+    """Compose and compress overview tile (k, tr, tc) of every output into its store."""
+    f = 2**k
+    tile = pyramid.tile
+    side = tile // f
+    width_k, height_k = pyramid.layout(1).shapes[k]
+    h = min(tile, height_k - tr * tile)
+    w = min(tile, width_k - tc * tile)
+    reader = TileStoreReader()
+    entries: dict[str, bytes | np.ndarray] = {}
+    try:
+        for name, codec in codecs.items():
+            out = None
+            for r, c in pyramid.sources(k, tr, tc):
+                piece = reader.read(pyramid.base_store(r, c), f"{name}/{r}/{c}/{k}")
+                if out is None:
+                    out = np.empty((piece.shape[0], h, w), np.float32)
+                    out[...] = codec.nodata
+                y, x = (r - tr * f) * side, (c - tc * f) * side
+                out[:, y:y + piece.shape[1], x:x + piece.shape[2]] = piece
+            entries[name] = codec.encode(out)
+    finally:
+        reader.close()
+    write_tile_store(pyramid.overview_store(k, tr, tc), entries)
 
 
 def write_cog(
     out_path: Path,
     name: str,
     grid: TargetGrid,
-    blocks: Sequence[tuple[Window, Path]],
+    pyramid: TilePyramid,
     descriptions: Sequence[str],
     band_tags: Sequence[dict[str, str]],
     codec: TileCodec,
     *,
     units: str = "",
     tags: dict[str, str] | None = None,
-    levels: int | None = None,
 ) -> Path:
-    """Assemble output ``name`` from the blocks' tile stores into one COG at ``out_path``.
+    """Copy output ``name``'s tiles from the tile stores into one COG at ``out_path``.
 
+    Every tile is already compressed: this is a byte copy plus the TIFF directories.
     Atomic: written under a temporary name, renamed into place when complete.
     """
-    n_bands = len(descriptions)
-    tile = codec.tile
-    if levels is None:
-        levels = min(overview_count(grid.width, grid.height), codec.max_levels)
-    layout = CogLayout(grid.width, grid.height, n_bands, levels, tile)
-    profile = {"width": grid.width, "height": grid.height, "count": n_bands,
+    layout = pyramid.layout(len(descriptions))
+    profile = {"width": grid.width, "height": grid.height, "count": layout.bands,
                "dtype": codec.dtype, "crs": grid.crs, "transform": grid.affine,
                "nodata": codec.nodata}
-    copied = template_tags(profile, tile, descriptions, band_tags, units, tags or {})
-    where: dict[tuple[int, int], Path] = {}
-    for window, path in blocks:
-        for r, c, _, _ in _tile_windows(window, tile):
-            where[r, c] = path
+    copied = template_tags(profile, pyramid.tile, descriptions, band_tags, units, tags or {})
     reader = TileStoreReader()
-    itemsize = np.dtype(codec.dtype).itemsize
-    tile_rows, tile_cols = layout.tiles(0)
 
-    def base_tiles() -> Iterator[bytes]:
-        for r in range(tile_rows):
-            for c in range(tile_cols):
-                yield reader.read(where[r, c], f"{name}/{r}/{c}")
+    def where(k: int) -> Iterator[tuple[Path, str]]:
+        rows, cols = layout.tiles(k)
+        for r in range(rows):
+            for c in range(cols):
+                if k == 0:
+                    yield pyramid.base_store(r, c), f"{name}/{r}/{c}"
+                else:
+                    yield pyramid.overview_store(k, r, c), name
 
-    def composed(k: int) -> Iterator[np.ndarray]:
-        """Level-k tiles, each composed from the pieces of the 2**k x 2**k tiles below."""
-        f = 2**k
-        side = tile // f
-        width_k, height_k = layout.shapes[k]
-        rows_k, cols_k = layout.tiles(k)
-        for tr in range(rows_k):
-            for tc in range(cols_k):
-                h = min(tile, height_k - tr * tile)
-                w = min(tile, width_k - tc * tile)
-                out = np.empty((n_bands, h, w), np.float32)
-                out[...] = codec.nodata
-                for r in range(tr * f, min((tr + 1) * f, tile_rows)):
-                    for c in range(tc * f, min((tc + 1) * f, tile_cols)):
-                        piece = reader.read(where[r, c], f"{name}/{r}/{c}/{k}")
-                        y, x = (r - tr * f) * side, (c - tc * f) * side
-                        out[:, y:y + piece.shape[1], x:x + piece.shape[2]] = piece
-                yield out
+    def level_tiles(k: int) -> Iterator[bytes]:
+        for path, key in where(k):
+            yield reader.read(path, key)
 
-    def level_tiles(k: int) -> Iterable[bytes]:
-        return base_tiles() if k == 0 else _pipelined(composed(k), codec.encode)
-
-    base_bytes = sum(reader.length(where[r, c], f"{name}/{r}/{c}")
-                     for r in range(tile_rows) for c in range(tile_cols))
-    n_ovr = sum(layout.tiles(k)[0] * layout.tiles(k)[1] for k in range(1, levels + 1))
-    bound = base_bytes + int(n_ovr * (tile * tile * n_bands * itemsize
-                                      * _COMPRESSED_BOUND[codec.compression] + 1024))
+    size = sum(reader.length(path, key) for k in range(layout.levels + 1)
+               for path, key in where(k))
     tmp = out_path.with_name(f".{out_path.stem}{PARTIAL_SUFFIX}.tif")
     try:
-        write_cog_from_tiles(tmp, layout, codec, copied, level_tiles, bound)
+        write_cog_from_tiles(tmp, layout, codec, copied, level_tiles, size)
     finally:
         reader.close()
     tmp.replace(out_path)
