@@ -665,7 +665,11 @@ def _chunk_newton(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_
 
 
 @njit(cache=True, nogil=True)
-def _extrema_kernel(mean, cos_coef, sin_coef, dd, depths, m, t_min, t_max, doy_min, doy_max):
+def _extrema_kernel(
+    mean, cos_coef, sin_coef, dd, depths, m,
+    t_min, t_max, doy_min, doy_max, t_mean, amplitude, phase_lag,
+):  # fmt: skip
+    """All depth_statistics outputs, (depth, cell) arrays, NaN for invalid cells."""
     h = cos_coef.shape[0]
     n_cells = mean.shape[0]
     year = YEAR_DAYS
@@ -705,14 +709,18 @@ def _extrema_kernel(mean, cos_coef, sin_coef, dd, depths, m, t_min, t_max, doy_m
         n = min(nc, n_cells - i0)
         for j in range(n):
             valid[j] = _cell_is_valid(mean, cos_coef, sin_coef, dd, i0 + j)
-        if h > 1:
-            _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d)
+        _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d)
         for jd in range(depths.shape[0]):
             z = depths[jd]
+            for j in range(n):
+                r[j] = z * inv_d[j] if z > 0.0 else 0.0
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, valid)
+            for j in range(n):
+                i = i0 + j
+                t_mean[jd, i] = mean[i]
+                amplitude[jd, i] = al[0, j]
+                phase_lag[jd, i] = r[j] / w
             if h > 1:
-                for j in range(n):
-                    r[j] = z * inv_d[j] if z > 0.0 else 0.0
-                _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, valid)
                 for j in range(n):
                     c_hi[j] = 1.0
                     s_hi[j] = 0.0
@@ -724,6 +732,8 @@ def _extrema_kernel(mean, cos_coef, sin_coef, dd, depths, m, t_min, t_max, doy_m
                               ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
                 _chunk_newton(n, -1.0, al, be, rho, marg, c, s, u, f, ok_lo,
                               ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
+                _chunk_write(n, i0, jd, mean, phi1, r, u_hi, f_hi, u, f, t_min, t_max,
+                             doy_min, doy_max)  # fmt: skip
             for j in range(n):
                 i = i0 + j
                 if not valid[j]:
@@ -731,24 +741,37 @@ def _extrema_kernel(mean, cos_coef, sin_coef, dd, depths, m, t_min, t_max, doy_m
                     t_max[jd, i] = np.nan
                     doy_min[jd, i] = np.nan
                     doy_max[jd, i] = np.nan
-                    continue
-                if h > 1 and marg[j] > 0.0 and ok_hi[j] and ok_lo[j]:
-                    base = phi1[j] + r[j]
-                    t_hi = ((base + u_hi[j]) / w) % year
-                    t_lo = ((base + u[j]) / w) % year
-                    if t_hi >= year:
-                        t_hi -= year
-                    if t_lo >= year:
-                        t_lo -= year
-                    vh = f_hi[j]
-                    vl = f[j]
-                else:
+                    t_mean[jd, i] = np.nan
+                    amplitude[jd, i] = np.nan
+                    phase_lag[jd, i] = np.nan
+                elif h == 1 or not (marg[j] > 0.0 and ok_hi[j] and ok_lo[j]):
                     _coefs_at_depth(cos_coef, sin_coef, i, dd[i], z, a, b)
                     t_hi, vh, t_lo, vl = _extrema(a, b, ctab, stab, v, dt, w, year)
-                t_max[jd, i] = mean[i] + vh
-                t_min[jd, i] = mean[i] + vl
-                doy_max[jd, i] = 1.0 + t_hi
-                doy_min[jd, i] = 1.0 + t_lo
+                    t_max[jd, i] = mean[i] + vh
+                    t_min[jd, i] = mean[i] + vl
+                    doy_max[jd, i] = 1.0 + t_hi
+                    doy_min[jd, i] = 1.0 + t_lo
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _chunk_write(n, i0, jd, mean, phi1, r, u_hi, f_hi, u_lo, f_lo, t_min, t_max, doy_min, doy_max):
+    """Write the fast-path results of a chunk (cells the fast path did not prove are
+    overwritten afterwards). Time = (phi_1 + r + u) / w, reduced to [0, year)."""
+    year = YEAR_DAYS
+    w = OMEGA_RAD_DAY
+    for j in range(n):
+        i = i0 + j
+        base = phi1[j] + r[j]
+        t_hi = (base + u_hi[j]) / w
+        t_hi -= year * np.floor(t_hi / year)
+        t_hi = t_hi - year if t_hi >= year else t_hi
+        t_lo = (base + u_lo[j]) / w
+        t_lo -= year * np.floor(t_lo / year)
+        t_lo = t_lo - year if t_lo >= year else t_lo
+        t_max[jd, i] = mean[i] + f_hi[j]
+        t_min[jd, i] = mean[i] + f_lo[j]
+        doy_max[jd, i] = 1.0 + t_hi
+        doy_min[jd, i] = 1.0 + t_lo
 
 
 @njit(cache=True, nogil=True)
@@ -1082,25 +1105,14 @@ def depth_statistics(
     n_depths = depths.shape[0]
     h = cos_coef.shape[0]
 
-    valid = ~np.isnan(mean) & (dd > 0)
-    valid &= ~np.isnan(cos_coef).any(axis=0) & ~np.isnan(sin_coef).any(axis=0)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        inv_d = np.where(valid, 1.0 / dd, np.nan)
-    a1 = np.hypot(cos_coef[0], sin_coef[0])
-    t_mean = np.where(valid, mean, np.nan)
-
     out = {
         key: np.empty((n_depths, n_cells))
         for key in ("t_mean", "amplitude", "phase_lag", "t_min", "t_max", "doy_min", "doy_max")
     }
-    for j, z in enumerate(depths):
-        r = z * inv_d
-        out["t_mean"][j] = t_mean
-        out["amplitude"][j] = a1 * np.exp(-r)
-        out["phase_lag"][j] = r / OMEGA_RAD_DAY
     _extrema_kernel(
         mean, cos_coef, sin_coef, dd, depths, _n_samples(h),
         out["t_min"], out["t_max"], out["doy_min"], out["doy_max"],
+        out["t_mean"], out["amplitude"], out["phase_lag"],
     )  # fmt: skip
     return {key: val.reshape((n_depths,) + shape) for key, val in out.items()}
 
