@@ -623,16 +623,19 @@ def run_recipe(
             t2 = time.perf_counter()
             if progress:
                 progress("maps", 0, len(todo))
-            # one output at a time: a byte copy of tiles the tasks compressed
-            for i, name in enumerate(todo, start=1):
-                path = _write_output(plan, name, out, pyramid)
-                entry = record.output_entry(plan, name, path, summary[name])
-                entry["input_corrections"] = {k: counts.get(k, 0) for k in BOUNDS_COUNTERS}
-                rec["outputs"][name] = entry
-                rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
-                record.write(out / RECORD_NAME, rec)  # lists only complete outputs
-                if progress:
-                    progress("maps", i, len(todo))
+            # two outputs at a time: a byte copy of tiles the tasks compressed, bound by
+            # file writes that release the GIL
+            from concurrent.futures import ThreadPoolExecutor
+
+            pool = ThreadPoolExecutor(2, thread_name_prefix="geothermmap-cog")
+            try:
+                written = pool.map(lambda n: _write_output(plan, n, out, pyramid), todo)
+                for i, (name, path) in enumerate(zip(todo, written, strict=True), start=1):
+                    _record_output(plan, rec, name, path, summary[name], counts, out)
+                    if progress:
+                        progress("maps", i, len(todo))
+            finally:  # an interrupt waits for running copies, so cleanup sees them all
+                pool.shutdown(wait=True, cancel_futures=True)
             rec["outputs"] = {n: rec["outputs"][n] for n in plan.outputs if n in rec["outputs"]}
             if progress:
                 progress("maps", len(todo), len(todo))
@@ -655,6 +658,16 @@ def run_recipe(
     shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
     paths = {n: out / OUTPUTS[n].filename for n in plan.outputs}
     return RunResult(out, paths, out / RECORD_NAME, rec)
+
+
+def _record_output(plan: RunPlan, rec: dict, name: str, path: Path, summary: dict,
+                   counts: dict, out: Path) -> None:
+    """Add a complete output to the run record and write the record."""
+    entry = record.output_entry(plan, name, path, summary)
+    entry["input_corrections"] = {k: counts.get(k, 0) for k in BOUNDS_COUNTERS}
+    rec["outputs"][name] = entry
+    rec["files"] = sorted({e["file"] for e in rec["outputs"].values()})
+    record.write(out / RECORD_NAME, rec)  # lists only complete outputs
 
 
 def _is_partial(name: str) -> bool:
