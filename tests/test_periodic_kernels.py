@@ -169,6 +169,7 @@ def test_realistic_cells_many_chunks_with_nan_cells():
     # a cell's answer does not depend on its neighbours in the chunk
     for key in stats:
         np.testing.assert_array_equal(ref_stats[key], stats[key][:, pick])
+    np.testing.assert_array_equal(frost_depth_conduction(sub, d[pick]), frost[pick])
 
 
 def _dense_min(mean, cos_c, sin_c, d, z, n_t=20000):

@@ -567,16 +567,31 @@ def _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d):
             amp[k, j] = math.sqrt(ak * ak + bk * bk)
 
 
+#: sin(pi / n) for n = 0 .. MAX_HARMONICS (entries 0, 1 unused): n h < pi iff rho < sin(pi / n)
+_SIN_PI_OVER_N = (0.0, 0.0) + tuple(math.sin(math.pi / n) for n in range(2, 6))
+
+
 @njit(cache=True, nogil=True, error_model="numpy")
-def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo):
-    """u-frame coefficients al, be at r = z / d per cell, and the fast-path test.
+def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo):
+    """u-frame coefficients al, be at r = z / d per cell, and the fast-path tests.
 
     Cells with ``todo[j]`` false are skipped (their outputs keep stale values).
 
-    The fast path applies where ``marg[j] > 0``, the provable single-maximum,
-    single-minimum condition of :func:`_extrema` (``rho = sum_{n>=2} n A_n / A_1 < 1``
-    and ``marg = A_1 sqrt(1 - rho**2) - sum_{n>=2} n**2 A_n > 0``, amplitudes at depth);
-    marg is then a lower bound of |F''| on the arcs ``|sin u| <= rho``.
+    With F(u) = A_1 cos u + sum_{n>=2} A_n cos(n u + psi_n) (amplitudes at depth) and
+    ``rho = sum_{n>=2} n A_n / A_1 < 1``, F' = 0 only on the arcs |sin u| <= rho around
+    u = 0 and u = pi, of half-width h = asin(rho) (as in :func:`_extrema`). ``marg_hi`` and
+    ``marg_lo`` are lower bounds of -F'' on the first arc and of F'' on the second:
+
+        A_1 cos h + sum_n n**2 A_n min cos(n u + psi_n),            |u| <= h,
+        A_1 cos h - sum_n n**2 A_n max cos(n (pi + v) + psi_n),     |v| <= h,
+
+    the extremes of each cosine over its interval of half-width n h taken exactly (at an
+    end, or +-1 where the interval holds 0 or pi; +-1 as well if n h >= pi). Where one is
+    positive F' is strictly monotone on that arc, which then holds exactly one critical
+    point: the global maximum (resp. minimum). The bounds are never weaker than the
+    ``A_1 sqrt(1 - rho**2) > sum n**2 A_n`` test of :func:`_extrema`. No libm call: cos h,
+    sin h = sqrt(1 - rho**2), rho, cos/sin(n h) by angle addition, cos/sin psi_n from al, be.
+    NaN or rho >= 1 gives -1 (no fast path).
     """
     h = amp.shape[0]
     for j in range(n):
@@ -587,7 +602,6 @@ def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo):
         al[0, j] = a1
         be[0, j] = 0.0
         s1 = 0.0
-        s2 = 0.0
         for k in range(1, h):
             nn = k + 1.0
             sq = math.sqrt(nn)
@@ -597,14 +611,41 @@ def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo):
             sx = math.sin(x)
             al[k, j] = (er[k, j] * cx - ei[k, j] * sx) * ek
             be[k, j] = -(er[k, j] * sx + ei[k, j] * cx) * ek
-            amp_k = amp[k, j] * ek
-            s1 += nn * amp_k
-            s2 += nn * nn * amp_k
-        rho[j] = s1 / a1
-        if a1 > 0.0 and s1 < a1:
-            marg[j] = a1 * math.sqrt(1.0 - (s1 / a1) ** 2) - s2
-        else:
-            marg[j] = -1.0  # also for NaN
+            s1 += nn * (amp[k, j] * ek)
+        rho_j = s1 / a1
+        rho[j] = rho_j
+        if not (a1 > 0.0 and s1 < a1):
+            marg_hi[j] = -1.0  # also for NaN
+            marg_lo[j] = -1.0
+            continue
+        ch = math.sqrt(1.0 - rho_j * rho_j)
+        sh = rho_j
+        m_hi = a1 * ch
+        m_lo = a1 * ch
+        cnh = ch
+        snh = sh
+        for k in range(1, h):
+            nn = k + 1.0
+            cnh, snh = cnh * ch - snh * sh, snh * ch + cnh * sh  # cos(n h), sin(n h)
+            ak = al[k, j]
+            bk = be[k, j]
+            amp_k = math.sqrt(ak * ak + bk * bk)
+            lo_c = -1.0  # min of cos(n u + psi) over |u| <= h
+            hi_c = 1.0  # max of cos(n u + psi) over |u| <= h
+            if k + 1 < len(_SIN_PI_OVER_N) and rho_j < _SIN_PI_OVER_N[k + 1] and amp_k > 0.0:
+                cp = ak / amp_k  # cos psi
+                sp = -bk / amp_k  # sin psi
+                c_plus = cp * cnh - sp * snh  # cos(psi + n h)
+                c_minus = cp * cnh + sp * snh  # cos(psi - n h)
+                if not -cp >= cnh:  # interval does not hold pi
+                    lo_c = min(c_plus, c_minus)
+                if not cp >= cnh:  # interval does not hold 0
+                    hi_c = max(c_plus, c_minus)
+            m_hi += nn * nn * amp_k * lo_c
+            # cos(n (pi + v) + psi) = (-1)**n cos(n v + psi)
+            m_lo -= nn * nn * amp_k * (hi_c if k % 2 == 1 else -lo_c)
+        marg_hi[j] = m_hi
+        marg_lo[j] = m_lo
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -689,7 +730,8 @@ def _extrema_kernel(
     inv_d = np.empty(nc)
     r = np.empty(nc)
     rho = np.empty(nc)
-    marg = np.empty(nc)
+    marg_hi = np.empty(nc)
+    marg_lo = np.empty(nc)
     valid = np.empty(nc, dtype=np.bool_)
     c = np.empty(nc)
     s = np.empty(nc)
@@ -714,7 +756,7 @@ def _extrema_kernel(
             z = depths[jd]
             for j in range(n):
                 r[j] = z * inv_d[j] if z > 0.0 else 0.0
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, valid)
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, valid)
             for j in range(n):
                 i = i0 + j
                 t_mean[jd, i] = mean[i]
@@ -728,9 +770,9 @@ def _extrema_kernel(
                     c[j] = -1.0
                     s[j] = 0.0
                     u[j] = math.pi
-                _chunk_newton(n, 1.0, al, be, rho, marg, c_hi, s_hi, u_hi, f_hi, ok_hi,
+                _chunk_newton(n, 1.0, al, be, rho, marg_hi, c_hi, s_hi, u_hi, f_hi, ok_hi,
                               ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
-                _chunk_newton(n, -1.0, al, be, rho, marg, c, s, u, f, ok_lo,
+                _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok_lo,
                               ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
                 _chunk_write(n, i0, jd, mean, phi1, r, u_hi, f_hi, u, f, t_min, t_max,
                              doy_min, doy_max)  # fmt: skip
@@ -744,7 +786,9 @@ def _extrema_kernel(
                     t_mean[jd, i] = np.nan
                     amplitude[jd, i] = np.nan
                     phase_lag[jd, i] = np.nan
-                elif h == 1 or not (marg[j] > 0.0 and ok_hi[j] and ok_lo[j]):
+                elif h == 1 or not (
+                    marg_hi[j] > 0.0 and ok_hi[j] and marg_lo[j] > 0.0 and ok_lo[j]
+                ):
                     _coefs_at_depth(cos_coef, sin_coef, i, dd[i], z, a, b)
                     t_hi, vh, t_lo, vl = _extrema(a, b, ctab, stab, v, dt, w, year)
                     t_max[jd, i] = mean[i] + vh
@@ -883,7 +927,8 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
     inv_d = np.empty(nc)
     r = np.empty(nc)
     rho = np.empty(nc)
-    marg = np.empty(nc)
+    marg_hi = np.empty(nc)  # unused: only the minimum is needed
+    marg_lo = np.empty(nc)
     c = np.empty(nc)
     s = np.empty(nc)
     u = np.empty(nc)
@@ -934,37 +979,39 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
             z[j] = zj
             state[j] = 1
             n_run += 1
-        if n_run > 0:
-            # surface minimum: frost only where mu + min_t T(0) < 0
-            for j in range(n):
-                todo[j] = state[j] == 1
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo)
-            _chunk_newton(n, -1.0, al, be, rho, marg, c, s, u, f, ok,
+        # Surface minimum: frost only where mu + min_t T(0) < 0. T at the annual trough
+        # (u = pi) bounds the minimum from above: where it is below 0 degC frost is
+        # certain and the search is not needed; elsewhere the fast path, or failing that
+        # the general search, decides.
+        n_check = 0
+        for j in range(n):
+            todo[j] = False
+            if state[j] != 1:
+                continue
+            f_pi = -amp[0, j]
+            for k in range(1, h):
+                f_pi += er[k, j] if k % 2 == 1 else -er[k, j]
+            if not mean[i0 + j] + f_pi < 0.0:
+                todo[j] = True
+                n_check += 1
+        if n_check > 0:
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo)
+            _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
                           ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
             for j in range(n):
-                if state[j] != 1:
+                if not todo[j]:
                     continue
-                mu = mean[i0 + j]
-                if marg[j] > 0.0 and ok[j]:
-                    if mu + f[j] >= 0.0:
-                        out[i0 + j] = FROST_NONE
-                        state[j] = 0
-                        n_run -= 1
-                    continue
-                # no proven surface minimum: frost is certain if T at the annual trough
-                # (u = pi), an upper bound of the minimum, is below 0 degC; else ask the
-                # general search
-                f_pi = -amp[0, j]
-                for k in range(1, h):
-                    f_pi += er[k, j] if k % 2 == 1 else -er[k, j]
-                if not mu + f_pi < 0.0:
-                    i = i0 + j
+                i = i0 + j
+                if marg_lo[j] > 0.0 and ok[j]:
+                    f0 = f[j]
+                else:
                     f0, _ = _min_and_slope(cos_coef, sin_coef, i, dd[i], 0.0, a, b,
                                            ctab, stab, v, dt, w, year)  # fmt: skip
-                    if mu + f0 >= 0.0:
-                        out[i] = FROST_NONE
-                        state[j] = 0
-                        n_run -= 1
+                if mean[i] + f0 >= 0.0:
+                    out[i] = FROST_NONE
+                    state[j] = 0
+                    n_run -= 1
+            for j in range(n):  # the depth search starts at the trough for every cell
                 c[j] = -1.0
                 s[j] = 0.0
                 u[j] = math.pi
@@ -974,16 +1021,16 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
             for j in range(n):
                 todo[j] = state[j] == 1
                 r[j] = z[j] * inv_d[j] if todo[j] else 0.0
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg, todo)
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo)
             # the first two depth steps move the minimiser most; later ones start close
             n_iter = _FAST_ITER if it < 2 else _FROST_TIME_ITER
-            _chunk_newton(n, -1.0, al, be, rho, marg, c, s, u, f, ok,
+            _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
                           ck, sk, f1, f2, n_iter)  # fmt: skip
             _chunk_slope(n, al, be, c, s, inv_d, slope)
             for j in range(n):
                 if state[j] == 0:
                     continue
-                if state[j] == 1 and marg[j] > 0.0 and ok[j]:
+                if state[j] == 1 and marg_lo[j] > 0.0 and ok[j]:
                     fj = f[j]
                     sj = slope[j]
                 else:  # no proven minimum at this depth: general search from now on
