@@ -503,13 +503,14 @@ def _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
 # with
 #     D_n = (a_n - i b_n) exp(i n phi_1) exp(-sqrt(n) r) exp(i (n - sqrt(n)) r),
 # so D_1 = A_1 exp(-r) is real and exp(i n phi_1) = ((a_1 + i b_1) / A_1)**n needs no
-# trigonometric call. Per cell and depth the transform costs exp(-sqrt(n) r) for each n
-# and cos, sin of (n - sqrt(n)) r for n >= 2 (three libm calls fewer per harmonic than
-# rotating a_n, b_n by sqrt(n) r). The maximum and minimum start at u = 0 and u = pi,
-# the annual harmonic's peak and trough, where cos u and sin u are exact. Newton steps in
-# u rotate (cos u, sin u) by (cos x, sin x) from Taylor polynomials (|x| <= _ROT_MAX,
-# longer steps are shortened), and cos(n u), sin(n u) follow by angle addition: no
-# trigonometric call inside the iteration.
+# trigonometric call. Per cell and depth the transform needs exp(-sqrt(n) r) for each n
+# and cos, sin of (n - sqrt(n)) r for n >= 2 only (no cos/sin of sqrt(n) r), evaluated
+# by the polynomial versions _exp_neg_parts and _sincos so that the loops over cells
+# vectorise (libm is not vectorised without SVML). The maximum and minimum start at
+# u = 0 and u = pi, the annual harmonic's peak and trough, where cos u and sin u are
+# exact. Newton steps in u rotate (cos u, sin u) by (cos x, sin x) from Taylor
+# polynomials (|x| <= _ROT_MAX, longer steps are shortened), and cos(n u), sin(n u)
+# follow by angle addition: no trigonometric call inside the iteration.
 
 _CHUNK = 128  # cells per chunk: ~20 scratch arrays of this length stay in L1
 _FAST_ITER = 5  # Newton steps in u for an extremum (typical need: 3-4)
@@ -542,6 +543,74 @@ def _rot_cs(x):
     return cs, sn
 
 
+_S17 = -1.0 / math.factorial(17)
+_C18 = -1.0 / math.factorial(18)
+_E = tuple(1.0 / math.factorial(k) for k in range(14))  # exp Taylor coefficients
+# Cody-Waite splits (fdlibm): the leading parts have trailing zero bits, so k * hi is
+# exact for the k used here
+_LN2_HI = 6.93147180369123816490e-01
+_LN2_LO = 1.90821492927058770002e-10
+_INV_LN2 = 1.44269504088896338700e00
+_PIO2_1 = 1.57079632673412561417e00  # first 33 bits of pi / 2
+_PIO2_1T = 6.07710050650619224932e-11  # pi / 2 - _PIO2_1
+_TWO_OVER_PI = 6.36619772367581382433e-01
+_SINCOS_MAX = 1.0e6  # _sincos is used below this argument, libm above
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _exp_neg_parts(y):
+    """exp(-y) = p * 2**-k for 0 <= y <= 708, without a libm call (loops vectorise).
+
+    Returns p and the bit pattern of 2**-k (a float64 with biased exponent 1023 - k): the
+    caller reinterprets it through a float64 view of an int64 array, since a table
+    look-up would stop LLVM from vectorising the loop. y = k ln 2 + f with
+    |f| <= ln(2) / 2 (Cody-Waite, k ln2_hi exact), exp(-f) by its Taylor polynomial to
+    f**13 (truncation < 4e-18 relative): rounding-limited, a few 1e-16 relative. y is
+    clamped to [0, 708] (NaN to 708): the caller handles y > 708 and NaN.
+    """
+    yc = y if y < 708.0 else 708.0
+    yc = yc if yc > 0.0 else 0.0
+    kf = np.floor(yc * _INV_LN2 + 0.5)
+    g = kf * _LN2_LO - (yc - kf * _LN2_HI)  # -f
+    p = 1.0 + g * (_E[1] + g * (_E[2] + g * (_E[3] + g * (_E[4] + g * (_E[5] + g * (
+        _E[6] + g * (_E[7] + g * (_E[8] + g * (_E[9] + g * (_E[10] + g * (
+            _E[11] + g * (_E[12] + g * _E[13]))))))))))))  # fmt: skip
+    return p, (1023 - np.int64(kf)) << 52
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _exp_neg_finish(y, p, scale):
+    """exp(-y) from _exp_neg_parts: p * 2**-k; 0 for y > 708, NaN for NaN."""
+    if y <= 708.0:
+        return p * scale
+    return 0.0 if y > 708.0 else y
+
+
+@njit(cache=True, nogil=True, error_model="numpy")
+def _sincos(x):
+    """cos x and sin x for 0 <= x < _SINCOS_MAX without a libm call.
+
+    x = q pi/2 + t with |t| <= pi/4 (two-part Cody-Waite reduction: absolute error of t
+    below q * 1e-26), Taylor polynomials to t**18 and t**17 (truncation < 1e-19), and
+    the quadrant q mod 4. Rounding-limited (~2e-16 absolute). NaN gives NaN.
+    """
+    qf = np.floor(x * _TWO_OVER_PI + 0.5)
+    t = (x - qf * _PIO2_1) - qf * _PIO2_1T
+    y = t * t
+    sn = t + t * y * (_S3 + y * (_S5 + y * (_S7 + y * (_S9 + y * (_S11 + y * (
+        _S13 + y * (_S15 + y * _S17)))))))  # fmt: skip
+    cs = 1.0 + y * (_C2 + y * (_C4 + y * (_C6 + y * (_C8 + y * (_C10 + y * (
+        _C12 + y * (_C14 + y * (_C16 + y * _C18))))))))  # fmt: skip
+    qm = qf - 4.0 * np.floor(0.25 * qf)
+    if qm == 0.0:
+        return cs, sn
+    if qm == 1.0:
+        return -sn, cs
+    if qm == 2.0:
+        return -cs, -sn
+    return sn, -cs
+
+
 @njit(cache=True, nogil=True, error_model="numpy")
 def _chunk_invariants(cos_coef, sin_coef, dd, i0, n, amp, er, ei, phi1, inv_d):
     """Per-cell constants of the fast-path frame (see above) for cells i0 .. i0 + n - 1."""
@@ -572,10 +641,11 @@ _SIN_PI_OVER_N = (0.0, 0.0) + tuple(math.sin(math.pi / n) for n in range(2, 6))
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo):
+def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo, ep, ib, fb):
     """u-frame coefficients al, be at r = z / d per cell, and the fast-path tests.
 
-    Cells with ``todo[j]`` false are skipped (their outputs keep stale values).
+    Cells with ``todo[j]`` false are skipped by the tests (coefficients are computed for
+    all). ``ep``, ``ib`` are scratch arrays, ``fb`` a float64 view of ``ib``.
 
     With F(u) = A_1 cos u + sum_{n>=2} A_n cos(n u + psi_n) (amplitudes at depth) and
     ``rho = sum_{n>=2} n A_n / A_1 < 1``, F' = 0 only on the arcs |sin u| <= rho around
@@ -594,24 +664,39 @@ def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo):
     NaN or rho >= 1 gives -1 (no fast path).
     """
     h = amp.shape[0]
+    # coefficients: branch-free loops over the cells (they vectorise), libm only for
+    # arguments beyond the range of _sincos
+    for k in range(h):
+        nn = k + 1.0
+        sq = math.sqrt(nn)
+        for j in range(n):
+            ep[j], ib[j] = _exp_neg_parts(sq * r[j])
+        if k == 0:
+            for j in range(n):
+                al[0, j] = amp[0, j] * _exp_neg_finish(r[j], ep[j], fb[j])
+                be[0, j] = 0.0
+            continue
+        for j in range(n):
+            ek = _exp_neg_finish(sq * r[j], ep[j], fb[j])
+            ep[j] = ek
+            cx, sx = _sincos((nn - sq) * r[j])
+            al[k, j] = (er[k, j] * cx - ei[k, j] * sx) * ek
+            be[k, j] = -(er[k, j] * sx + ei[k, j] * cx) * ek
+        for j in range(n):
+            x = (nn - sq) * r[j]
+            if x >= _SINCOS_MAX:
+                cx = math.cos(x)
+                sx = math.sin(x)
+                al[k, j] = (er[k, j] * cx - ei[k, j] * sx) * ep[j]
+                be[k, j] = -(er[k, j] * sx + ei[k, j] * cx) * ep[j]
     for j in range(n):
         if not todo[j]:
             continue
-        rj = r[j]
-        a1 = amp[0, j] * math.exp(-rj)
-        al[0, j] = a1
-        be[0, j] = 0.0
+        a1 = al[0, j]
         s1 = 0.0
         for k in range(1, h):
             nn = k + 1.0
-            sq = math.sqrt(nn)
-            ek = math.exp(-sq * rj)
-            x = (nn - sq) * rj
-            cx = math.cos(x)
-            sx = math.sin(x)
-            al[k, j] = (er[k, j] * cx - ei[k, j] * sx) * ek
-            be[k, j] = -(er[k, j] * sx + ei[k, j] * cx) * ek
-            s1 += nn * (amp[k, j] * ek)
+            s1 += nn * math.sqrt(al[k, j] * al[k, j] + be[k, j] * be[k, j])
         rho_j = s1 / a1
         rho[j] = rho_j
         if not (a1 > 0.0 and s1 < a1):
@@ -732,6 +817,9 @@ def _extrema_kernel(
     rho = np.empty(nc)
     marg_hi = np.empty(nc)
     marg_lo = np.empty(nc)
+    ep = np.empty(nc)
+    ib = np.empty(nc, dtype=np.int64)
+    fb = ib.view(np.float64)
     valid = np.empty(nc, dtype=np.bool_)
     c = np.empty(nc)
     s = np.empty(nc)
@@ -756,7 +844,8 @@ def _extrema_kernel(
             z = depths[jd]
             for j in range(n):
                 r[j] = z * inv_d[j] if z > 0.0 else 0.0
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, valid)
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, valid,
+                             ep, ib, fb)  # fmt: skip
             for j in range(n):
                 i = i0 + j
                 t_mean[jd, i] = mean[i]
@@ -929,6 +1018,9 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
     rho = np.empty(nc)
     marg_hi = np.empty(nc)  # unused: only the minimum is needed
     marg_lo = np.empty(nc)
+    ep = np.empty(nc)
+    ib = np.empty(nc, dtype=np.int64)
+    fb = ib.view(np.float64)
     c = np.empty(nc)
     s = np.empty(nc)
     u = np.empty(nc)
@@ -995,7 +1087,8 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
                 todo[j] = True
                 n_check += 1
         if n_check > 0:
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo)
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo,
+                             ep, ib, fb)  # fmt: skip
             _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
                           ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
             for j in range(n):
@@ -1021,7 +1114,8 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
             for j in range(n):
                 todo[j] = state[j] == 1
                 r[j] = z[j] * inv_d[j] if todo[j] else 0.0
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo)
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo,
+                             ep, ib, fb)  # fmt: skip
             # the first two depth steps move the minimiser most; later ones start close
             n_iter = _FAST_ITER if it < 2 else _FROST_TIME_ITER
             _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
