@@ -187,7 +187,7 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
     t_surf = inputs["surface_temperature"]
     shape = t_surf.shape[1:]
     n_months = t_surf.shape[0]
-    monthly = t_surf.reshape(n_months // 12, 12, *shape).mean(axis=0)
+    monthly = t_surf if n_months == 12 else t_surf.reshape(n_months // 12, 12, *shape).mean(axis=0)
     water = inputs["water_content"]
     water = water.mean(axis=0) if water.shape[0] > 1 else water[0]
     fields = {
@@ -208,6 +208,11 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
             valid &= np.isfinite(inputs[key][0])
     valid_index = np.flatnonzero(valid)
     n_valid = valid_index.size
+    every = n_valid == valid.size  # no nodata in the block: views instead of gathers
+
+    def take(a: np.ndarray) -> np.ndarray:  # (..., rows, cols) -> (..., valid cells)
+        flat = a.reshape(*a.shape[:-2], -1)
+        return flat if every else flat[..., valid_index]
 
     outputs = {
         name: np.full((output_band_count(name, config), *shape), np.nan, dtype=np.float32)
@@ -217,12 +222,12 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
     if n_valid == 0:
         return KernelResult(outputs, counts, 0, int(valid.size))
 
-    cells = {k: v.reshape(-1)[valid_index].astype(np.float64) for k, v in fields.items()}
+    cells = {k: take(v).astype(np.float64) for k, v in fields.items()}
     cells, counts, keep = apply_bounds(cells, config.strict, valid_index, shape)
-    monthly_cells = monthly.reshape(12, -1)[:, valid_index].astype(np.float64)
+    monthly_cells = take(monthly).astype(np.float64)
     for key in ("n_factor_freezing", "n_factor_thawing"):
         if key in inputs:
-            cells[key] = inputs[key][0].reshape(-1)[valid_index].astype(np.float64)
+            cells[key] = take(inputs[key][0]).astype(np.float64)
 
     props = properties.soil_thermal_properties(
         cells["sand"], cells["clay"], cells["water_content"], cells["bulk_density"],
@@ -257,7 +262,7 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
     if groups:
         state = CellState(
             inputs=cells,
-            series=t_surf.reshape(n_months, -1)[:, valid_index].astype(np.float64),
+            series=take(t_surf).astype(np.float64),
             monthly=monthly_cells, props=props, fit=fit, damping_depth_m=d1, config=config)
         done: set[str] = set()
         for group in sorted(groups):
@@ -270,10 +275,16 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
                 counts[key] = counts.get(key, 0) + value  # "_max" keys: see pipeline
             values.update({k: v for k, v in group_values.items() if k in wanted})
 
+    keep_all = bool(keep.all())
     for name, arr in values.items():
-        arr = np.asarray(arr, dtype=np.float64)
-        arr = np.where(keep, arr, np.nan)  # masked cells are nodata in every output
+        arr = np.asarray(arr)
+        if not keep_all:
+            arr = np.where(keep, arr, np.nan)  # masked cells are nodata in every output
         target = outputs[name].reshape(outputs[name].shape[0], -1)
-        target[:, valid_index] = arr.reshape(target.shape[0], -1).astype(np.float32)
+        arr = arr.reshape(target.shape[0], -1)
+        if every:
+            target[...] = arr  # cast to float32 on assignment
+        else:
+            target[:, valid_index] = arr
     n_masked = int(np.count_nonzero(~keep))
     return KernelResult(outputs, counts, n_valid - n_masked, int(valid.size) - n_valid + n_masked)

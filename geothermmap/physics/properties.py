@@ -59,6 +59,7 @@ America Journal, 71(1), 8-14. doi:10.2136/sssaj2006.0041
 
 from __future__ import annotations
 
+import math
 from types import MappingProxyType
 from typing import Any
 
@@ -512,15 +513,18 @@ def solids_conductivity(
 
     Farouki, O. T. (1981). Thermal properties of soils. CRREL Monograph 81-1.
     """
-    k_other = _choose(
+    ln_other = _choose(
         np.greater(quartz_fraction, QUARTZ_LOW_THRESHOLD),
-        K_OTHER_MINERALS_W_MK,
-        K_OTHER_MINERALS_LOW_QUARTZ_W_MK,
+        math.log(K_OTHER_MINERALS_W_MK),
+        math.log(K_OTHER_MINERALS_LOW_QUARTZ_W_MK),
         like=quartz_fraction,
     )
-    k_mineral = K_QUARTZ_W_MK**quartz_fraction * k_other ** (1.0 - quartz_fraction)
+    q = quartz_fraction
     v = organic_volume_fraction_of_solids
-    return k_mineral ** (1.0 - v) * K_ORGANIC_W_MK**v
+    # the geometric means as one exp of weighted logs (one transcendental per cell
+    # instead of four powers)
+    ln_mineral = q * math.log(K_QUARTZ_W_MK) + (1.0 - q) * ln_other
+    return np.exp((1.0 - v) * ln_mineral + v * math.log(K_ORGANIC_W_MK))
 
 
 def saturated_conductivity(
@@ -557,10 +561,14 @@ def saturated_conductivity(
     Farouki, O. T. (1981). Thermal properties of soils. CRREL Monograph 81-1.
     """
     n = porosity
+    # geometric means as exps of weighted logs; the frozen form only where asked for
+    solids_part = (1.0 - n) * np.log(solids_w_mk)
+    unfrozen = np.exp(solids_part + n * math.log(K_WATER_W_MK))
+    if np.ndim(frozen) == 0 and not frozen:
+        return unfrozen
     theta_u = _clip(unfrozen_water_m3m3, 0.0, n)
-    solids_part = solids_w_mk ** (1.0 - n)
-    unfrozen = solids_part * K_WATER_W_MK**n
-    frozen_value = solids_part * K_ICE_W_MK ** (n - theta_u) * K_WATER_W_MK**theta_u
+    frozen_value = np.exp(solids_part + (n - theta_u) * math.log(K_ICE_W_MK)
+                          + theta_u * math.log(K_WATER_W_MK))
     return _choose(frozen, frozen_value, unfrozen)
 
 
