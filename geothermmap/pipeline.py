@@ -22,6 +22,7 @@ from typing import Any
 
 import numpy as np
 import rasterio
+from numba import njit
 from rasterio.crs import CRS
 from rasterio.errors import CRSError, RasterioError, RasterioIOError
 from rasterio.windows import Window
@@ -394,12 +395,28 @@ def overview_tasks(tasks: list[BlockTask], pyramid: TilePyramid
     return out
 
 
+@njit(cache=True, nogil=True)
+def _stats_pass(a):
+    """Count, sum, sum of squares, min, max of the finite values, in one float64 pass."""
+    n = 0
+    total = 0.0
+    squares = 0.0
+    lo = math.inf
+    hi = -math.inf
+    for v in a.ravel():
+        x = np.float64(v)
+        if math.isfinite(x):
+            n += 1
+            total += x
+            squares += x * x
+            lo = min(lo, x)
+            hi = max(hi, x)
+    return n, total, squares, lo, hi
+
+
 def _partial_stats(a: np.ndarray) -> list[float]:
-    v = a[np.isfinite(a)].astype(np.float64)
-    if v.size == 0:
-        return [0, 0.0, 0.0, math.inf, -math.inf]
-    return [int(v.size), float(v.sum()), float(np.square(v).sum()), float(v.min()),
-            float(v.max())]
+    n, total, squares, lo, hi = _stats_pass(np.ascontiguousarray(a))
+    return [int(n), float(total), float(squares), float(lo), float(hi)]
 
 
 def _combine(parts: list[dict[str, Any]], outputs: tuple[str, ...]) -> tuple[dict, dict]:
