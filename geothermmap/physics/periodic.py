@@ -648,11 +648,10 @@ _SIN_PI_OVER_N = (0.0, 0.0) + tuple(math.sin(math.pi / n) for n in range(2, 6))
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
-def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo, ep, ib, fb):
+def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb):
     """u-frame coefficients al, be at r = z / d per cell, and the fast-path tests.
 
-    Cells with ``todo[j]`` false are skipped by the tests (coefficients are computed for
-    all). ``ep``, ``ib`` are scratch arrays, ``fb`` a float64 view of ``ib``.
+    ``tmp`` (3, n) and ``ib`` are scratch arrays, ``fb`` a float64 view of ``ib``.
 
     With F(u) = A_1 cos u + sum_{n>=2} A_n cos(n u + psi_n) (amplitudes at depth) and
     ``rho = sum_{n>=2} n A_n / A_1 < 1``, F' = 0 only on the arcs |sin u| <= rho around
@@ -671,6 +670,7 @@ def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo, ep,
     NaN or rho >= 1 gives -1 (no fast path).
     """
     h = amp.shape[0]
+    ep = tmp[0]
     # coefficients: branch-free loops over the cells (they vectorise), libm only for
     # arguments beyond the range of _sincos
     for k in range(h):
@@ -696,48 +696,66 @@ def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo, ep,
                 sx = math.sin(x)
                 al[k, j] = (er[k, j] * cx - ei[k, j] * sx) * ep[j]
                 be[k, j] = -(er[k, j] * sx + ei[k, j] * cx) * ep[j]
+    # fast-path bounds: harmonic-outer passes of branch-free loops over the cells
+    ch = tmp[1]  # cos h, then cos(n h)
+    cnh = tmp[1]
+    snh = tmp[2]  # sin(n h)
     for j in range(n):
-        if not todo[j]:
-            continue
+        rho[j] = 0.0
+    for k in range(1, h):
+        nn = k + 1.0
+        for j in range(n):
+            rho[j] += nn * math.sqrt(al[k, j] * al[k, j] + be[k, j] * be[k, j])
+    for j in range(n):
         a1 = al[0, j]
-        s1 = 0.0
-        for k in range(1, h):
-            nn = k + 1.0
-            s1 += nn * math.sqrt(al[k, j] * al[k, j] + be[k, j] * be[k, j])
+        s1 = rho[j]
         rho_j = s1 / a1
         rho[j] = rho_j
-        if not (a1 > 0.0 and s1 < a1):
-            marg_hi[j] = -1.0  # also for NaN
-            marg_lo[j] = -1.0
-            continue
-        ch = math.sqrt(1.0 - rho_j * rho_j)
-        sh = rho_j
-        m_hi = a1 * ch
-        m_lo = a1 * ch
-        cnh = ch
-        snh = sh
-        for k in range(1, h):
-            nn = k + 1.0
-            cnh, snh = cnh * ch - snh * sh, snh * ch + cnh * sh  # cos(n h), sin(n h)
+        # NaN or rho >= 1: no fast path (ch NaN -> bounds NaN -> -1 below)
+        chj = math.sqrt(1.0 - rho_j * rho_j) if (a1 > 0.0 and s1 < a1) else np.nan
+        ch[j] = chj
+        snh[j] = rho_j
+        marg_hi[j] = a1 * chj
+        marg_lo[j] = a1 * chj
+    ch_sh = tmp[0]  # keep cos h, sin h for the recurrence
+    for j in range(n):
+        ch_sh[j] = ch[j]
+    for k in range(1, h):
+        nn = k + 1.0
+        sharp = k + 1 < len(_SIN_PI_OVER_N)
+        lim = _SIN_PI_OVER_N[k + 1] if sharp else 0.0
+        for j in range(n):
+            c0 = ch_sh[j]
+            s0 = rho[j]
+            if k > 1:  # cos(n h), sin(n h) from cos((n-1) h), sin((n-1) h)
+                cj = cnh[j] * c0 - snh[j] * s0
+                sj = snh[j] * c0 + cnh[j] * s0
+            else:  # n = 2
+                cj = c0 * c0 - s0 * s0
+                sj = 2.0 * s0 * c0
+            cnh[j] = cj
+            snh[j] = sj
             ak = al[k, j]
             bk = be[k, j]
             amp_k = math.sqrt(ak * ak + bk * bk)
-            lo_c = -1.0  # min of cos(n u + psi) over |u| <= h
-            hi_c = 1.0  # max of cos(n u + psi) over |u| <= h
-            if k + 1 < len(_SIN_PI_OVER_N) and rho_j < _SIN_PI_OVER_N[k + 1] and amp_k > 0.0:
-                cp = ak / amp_k  # cos psi
-                sp = -bk / amp_k  # sin psi
-                c_plus = cp * cnh - sp * snh  # cos(psi + n h)
-                c_minus = cp * cnh + sp * snh  # cos(psi - n h)
-                if not -cp >= cnh:  # interval does not hold pi
-                    lo_c = min(c_plus, c_minus)
-                if not cp >= cnh:  # interval does not hold 0
-                    hi_c = max(c_plus, c_minus)
-            m_hi += nn * nn * amp_k * lo_c
+            usable = sharp and s0 < lim and amp_k > 0.0
+            inv = 1.0 / amp_k if amp_k > 0.0 else 0.0
+            cp = ak * inv  # cos psi
+            sp = -bk * inv  # sin psi
+            c_plus = cp * cj - sp * sj  # cos(psi + n h)
+            c_minus = cp * cj + sp * sj  # cos(psi - n h)
+            # min and max of cos(n u + psi) over |u| <= h: +-1 where the interval holds
+            # pi (resp. 0), else at an end
+            lo_c = min(c_plus, c_minus) if (usable and not -cp >= cj) else -1.0
+            hi_c = max(c_plus, c_minus) if (usable and not cp >= cj) else 1.0
+            marg_hi[j] += nn * nn * amp_k * lo_c
             # cos(n (pi + v) + psi) = (-1)**n cos(n v + psi)
-            m_lo -= nn * nn * amp_k * (hi_c if k % 2 == 1 else -lo_c)
-        marg_hi[j] = m_hi
-        marg_lo[j] = m_lo
+            marg_lo[j] -= nn * nn * amp_k * (hi_c if k % 2 == 1 else -lo_c)
+    for j in range(n):
+        if not marg_hi[j] > -1.0:  # also NaN
+            marg_hi[j] = -1.0
+        if not marg_lo[j] > -1.0:
+            marg_lo[j] = -1.0
 
 
 @njit(cache=True, nogil=True, error_model="numpy")
@@ -824,7 +842,7 @@ def _extrema_kernel(
     rho = np.empty(nc)
     marg_hi = np.empty(nc)
     marg_lo = np.empty(nc)
-    ep = np.empty(nc)
+    tmp = np.empty((3, nc))
     ib = np.empty(nc, dtype=np.int64)
     fb = ib.view(np.float64)
     valid = np.empty(nc, dtype=np.bool_)
@@ -851,8 +869,7 @@ def _extrema_kernel(
             z = depths[jd]
             for j in range(n):
                 r[j] = z * inv_d[j] if z > 0.0 else 0.0
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, valid,
-                             ep, ib, fb)  # fmt: skip
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb)
             for j in range(n):
                 i = i0 + j
                 t_mean[jd, i] = mean[i]
@@ -1025,7 +1042,7 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
     rho = np.empty(nc)
     marg_hi = np.empty(nc)  # unused: only the minimum is needed
     marg_lo = np.empty(nc)
-    ep = np.empty(nc)
+    tmp = np.empty((3, nc))
     ib = np.empty(nc, dtype=np.int64)
     fb = ib.view(np.float64)
     c = np.empty(nc)
@@ -1094,8 +1111,7 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
                 todo[j] = True
                 n_check += 1
         if n_check > 0:
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo,
-                             ep, ib, fb)  # fmt: skip
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb)
             _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
                           ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
             for j in range(n):
@@ -1121,8 +1137,7 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
             for j in range(n):
                 todo[j] = state[j] == 1
                 r[j] = z[j] * inv_d[j] if todo[j] else 0.0
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, todo,
-                             ep, ib, fb)  # fmt: skip
+            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb)
             # the first two depth steps move the minimiser most; later ones start close
             n_iter = _FAST_ITER if it < 2 else _FROST_TIME_ITER
             _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
