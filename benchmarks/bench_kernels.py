@@ -7,17 +7,25 @@ warms numba up on a small slice, then times ``depth_statistics`` at depths
 the kernels are serial). Prints seconds and cells per second.
 
     .venv/bin/python benchmarks/bench_kernels.py [--side 512] [--repeat 5] [--harmonics 2]
+        [--ref OLD_PERIODIC.py]
+
+``--ref`` also times (interleaved, same inputs) another copy of the module, e.g. an
+older version written out with ``git show REV:geothermmap/physics/periodic.py > FILE``,
+and prints the largest differences of its results from the current ones.
 """
 
 from __future__ import annotations
 
 import argparse
+import importlib.util
+import sys
 import time
+from pathlib import Path
 
 import numpy as np
 
+from geothermmap.physics import periodic
 from geothermmap.physics.harmonics import HarmonicFit
-from geothermmap.physics.periodic import depth_statistics, frost_depth_conduction
 
 DEPTHS = (0.1, 0.5, 1.0, 2.0)
 
@@ -42,23 +50,56 @@ def best_time(fn, repeat: int) -> float:
     return best
 
 
+def load_module(path: str):
+    path = Path(path).resolve()
+    sys.path.insert(0, str(path.parent))  # a plain import, so that numba can cache it
+    spec = importlib.util.spec_from_file_location(path.stem, path)
+    module = importlib.util.module_from_spec(spec)
+    sys.modules[path.stem] = module
+    spec.loader.exec_module(module)
+    return module
+
+
+def time_module(module, fit, d, repeat):
+    small = HarmonicFit(fit.mean[:100], fit.cos_coef[:, :100], fit.sin_coef[:, :100])
+    module.depth_statistics(small, d[:100], DEPTHS)  # compile / load the numba cache
+    module.frost_depth_conduction(small, d[:100])
+    t_stats = best_time(lambda: module.depth_statistics(fit, d, DEPTHS), repeat)
+    t_frost = best_time(lambda: module.frost_depth_conduction(fit, d), repeat)
+    return t_stats, t_frost
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--side", type=int, default=512)
     parser.add_argument("--repeat", type=int, default=5)
     parser.add_argument("--harmonics", type=int, default=2)
+    parser.add_argument("--ref", help="another copy of periodic.py to time and compare")
     args = parser.parse_args()
     n = args.side * args.side
     fit, d = make_cells(n, args.harmonics)
-    small = HarmonicFit(fit.mean[:100], fit.cos_coef[:, :100], fit.sin_coef[:, :100])
-    depth_statistics(small, d[:100], DEPTHS)  # compile / load the numba cache
-    frost_depth_conduction(small, d[:100])
-
-    t_stats = best_time(lambda: depth_statistics(fit, d, DEPTHS), args.repeat)
-    t_frost = best_time(lambda: frost_depth_conduction(fit, d), args.repeat)
+    rows = [("current", periodic)]
+    if args.ref:
+        rows.append(("ref", load_module(args.ref)))
     print(f"cells {n:,}, harmonics {args.harmonics}, depths {DEPTHS}")
-    print(f"depth_statistics       {t_stats:7.3f} s  {n / t_stats / 1e6:7.2f} Mcells/s")
-    print(f"frost_depth_conduction {t_frost:7.3f} s  {n / t_frost / 1e6:7.2f} Mcells/s")
+    for name, module in rows:
+        t_stats, t_frost = time_module(module, fit, d, args.repeat)
+        for what, sec in (("depth_statistics", t_stats), ("frost_depth_conduction", t_frost)):
+            print(f"{name:8s} {what:22s} {sec:7.3f} s  {n / sec / 1e6:7.2f} Mcells/s")
+    if args.ref:
+        ref = rows[1][1]
+        cur = periodic.depth_statistics(fit, d, DEPTHS)
+        old = ref.depth_statistics(fit, d, DEPTHS)
+        for key in ("t_min", "t_max"):
+            print(f"max |{key} - ref| = {np.nanmax(np.abs(cur[key] - old[key])):.2e} K")
+        for key in ("doy_min", "doy_max"):
+            diff = (cur[key] - old[key] + 0.5 * 365.25) % 365.25 - 0.5 * 365.25
+            print(f"max |{key} - ref| = {np.nanmax(np.abs(diff)):.2e} day")
+        zf = periodic.frost_depth_conduction(fit, d)
+        zf_ref = ref.frost_depth_conduction(fit, d)
+        same_codes = np.array_equal(zf <= 0, zf_ref <= 0)
+        err = np.nanmax(np.abs(zf - zf_ref))
+        print(f"max |frost - ref| = {err:.2e} m, same codes: {same_codes}")
 
 
 if __name__ == "__main__":
