@@ -1082,11 +1082,11 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
                 continue
             amp_sum = 0.0
             for k in range(h):
-                amp_sum += math.hypot(cos_coef[k, i], sin_coef[k, i])
+                amp_sum += amp[k, j]  # sqrt(a**2 + b**2), as hypot to rounding
             if amp_sum <= mu:  # even the envelope stays above 0 degC
                 out[i] = FROST_NONE
                 continue
-            a1 = math.hypot(cos_coef[0, i], sin_coef[0, i])
+            a1 = amp[0, j]
             hi[j] = dd[i] * math.log(amp_sum / mu)
             lo[j] = 0.0
             zj = dd[i] * math.log(a1 / mu) if a1 > mu else 0.5 * hi[j]
