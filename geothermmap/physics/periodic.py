@@ -521,7 +521,8 @@ def _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
 
 _CHUNK = 128  # cells per chunk: ~20 scratch arrays of this length stay in L1
 _FAST_ITER = 5  # Newton steps in u for an extremum (typical need: 3-4)
-_FAST_TOL_RAD = 1e-6  # last Newton step [rad] (= 5.8e-5 day); the next error is ~1e-12 rad
+_FAST_TOL_RAD = 1e-6  # proven bound |F'| / min|F''| on the distance to the extremum [rad]
+# (= 5.8e-5 day) at the last evaluated point; after the last step the error is ~1e-12 rad
 _ROT_MAX = 0.5  # largest Newton step [rad] rotated by the Taylor polynomials below
 _FROST_ITER = 8  # Newton steps in depth (typical need: 3-5)
 _FROST_TIME_ITER = 3  # warm-started Newton steps in u per depth step
@@ -1134,15 +1135,18 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
         for it in range(_FROST_ITER):
             if n_run == 0:
                 break
+            n_fast = 0
             for j in range(n):
                 todo[j] = state[j] == 1
+                n_fast += todo[j]
                 r[j] = z[j] * inv_d[j] if todo[j] else 0.0
-            _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb)
-            # the first two depth steps move the minimiser most; later ones start close
-            n_iter = _FAST_ITER if it < 2 else _FROST_TIME_ITER
-            _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
-                          ck, sk, f1, f2, n_iter)  # fmt: skip
-            _chunk_slope(n, al, be, c, s, inv_d, slope)
+            if n_fast > 0:  # else only cells on the general search are left
+                _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb)
+                # the first two depth steps move the minimiser most; later ones start close
+                n_iter = _FAST_ITER if it < 2 else _FROST_TIME_ITER
+                _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
+                              ck, sk, f1, f2, n_iter)  # fmt: skip
+                _chunk_slope(n, al, be, c, s, inv_d, slope)
             for j in range(n):
                 if state[j] == 0:
                     continue
@@ -1307,9 +1311,10 @@ def frost_depth_conduction(
       1e-6 m (contract: 1 mm). Each depth step needs the yearly minimum at that depth:
       where the annual harmonic provably dominates (see :func:`depth_statistics`) it
       comes from Newton iterations in time started at the previous step's minimiser and
-      accepted only with the same proof check; otherwise from the general search. The
-      surface minimum is only needed where T at the annual trough is >= 0 degC and the
-      fast path cannot prove it (T there bounds the minimum from above).
+      accepted only with the same proof check; once that fails for a cell, its later
+      steps use the general search. The surface minimum (fast path or general search)
+      is only needed where T at the annual trough is >= 0 degC: T there bounds the
+      minimum from above, so below 0 degC it already proves that frost reaches down.
 
     Parameters
     ----------
