@@ -817,6 +817,14 @@ def _chunk_newton(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_
 
 
 @njit(cache=True, nogil=True)
+def _chunk_buffers(h, nc):
+    """Work arrays of the vectorised fast path for one chunk of nc cells, h harmonics."""
+    return (np.empty((h, nc)), np.zeros((h, nc)), np.zeros((h, nc)), np.empty((h, nc)),
+            np.empty((h, nc)), np.empty(nc), np.empty(nc), np.empty(nc), np.empty(nc),
+            np.empty(nc), np.empty(nc))
+
+
+@njit(cache=True, nogil=True)
 def _extrema_kernel(
     mean, cos_coef, sin_coef, dd, depths, m,
     t_min, t_max, doy_min, doy_max, t_mean, amplitude, phase_lag,
@@ -832,17 +840,7 @@ def _extrema_kernel(
     b = np.empty(h)
     v = np.empty(m)
     nc = _CHUNK
-    amp = np.empty((h, nc))
-    er = np.zeros((h, nc))
-    ei = np.zeros((h, nc))
-    al = np.empty((h, nc))
-    be = np.empty((h, nc))
-    phi1 = np.empty(nc)
-    inv_d = np.empty(nc)
-    r = np.empty(nc)
-    rho = np.empty(nc)
-    marg_hi = np.empty(nc)
-    marg_lo = np.empty(nc)
+    amp, er, ei, al, be, phi1, inv_d, r, rho, marg_hi, marg_lo = _chunk_buffers(h, nc)
     tmp = np.empty((3, nc))
     ib = np.empty(nc, dtype=np.int64)
     fb = ib.view(np.float64)
@@ -1032,17 +1030,7 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
             out[i] = _frost_cell(mean, cos_coef, sin_coef, dd, i, a, b, ctab, stab, v, dt, w, year)
         return
     nc = _CHUNK
-    amp = np.empty((h, nc))
-    er = np.zeros((h, nc))
-    ei = np.zeros((h, nc))
-    al = np.empty((h, nc))
-    be = np.empty((h, nc))
-    phi1 = np.empty(nc)
-    inv_d = np.empty(nc)
-    r = np.empty(nc)
-    rho = np.empty(nc)
-    marg_hi = np.empty(nc)  # unused: only the minimum is needed
-    marg_lo = np.empty(nc)
+    amp, er, ei, al, be, phi1, inv_d, r, rho, marg_hi, marg_lo = _chunk_buffers(h, nc)
     tmp = np.empty((3, nc))
     ib = np.empty(nc, dtype=np.int64)
     fb = ib.view(np.float64)
