@@ -236,22 +236,26 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
     fit = harmonics.fit_harmonics(monthly_cells, config.harmonics)
     d1 = periodic.damping_depth(props["diffusivity_m2_s"])
     d1 = np.where(keep, d1, np.nan)
-    a1 = harmonics.amplitude(fit)[0]
 
     values: dict[str, np.ndarray] = {}
     wanted = set(config.outputs)
-    if wanted & {"t_mean", "t_min", "t_max", "amplitude", "phase_lag", "doy_min", "doy_max"}:
-        stats = periodic.depth_statistics(fit, d1, np.asarray(config.depths_m))
+    extremes = bool(wanted & {"t_min", "t_max", "doy_min", "doy_max"})
+    if extremes or wanted & {"t_mean", "amplitude", "phase_lag"}:
+        stats = periodic.depth_statistics(fit, d1, np.asarray(config.depths_m), extremes)
         values.update({k: stats[k] for k in stats if k in wanted})
+
+    def a1() -> np.ndarray:  # annual surface amplitude, only for the outputs that use it
+        return harmonics.amplitude(fit)[0]
+
     per_cell = {
         "damping_depth": lambda: d1,
         "conductivity": lambda: props["conductivity_w_mk"],
         "heat_capacity": lambda: props["heat_capacity_j_m3k"],
         "diffusivity": lambda: props["diffusivity_m2_s"],
         "zero_amplitude_depth": lambda: periodic.zero_amplitude_depth(
-            a1, d1, config.zero_amplitude_tolerance_K),
+            a1(), d1, config.zero_amplitude_tolerance_K),
         "surface_heat_flux_amplitude": lambda: periodic.surface_heat_flux_amplitude(
-            a1, props["conductivity_w_mk"], props["heat_capacity_j_m3k"]),
+            a1(), props["conductivity_w_mk"], props["heat_capacity_j_m3k"]),
         "frost_depth": lambda: periodic.frost_depth_conduction(fit, d1),
     }
     for name, fn in per_cell.items():

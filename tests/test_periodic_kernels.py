@@ -197,6 +197,13 @@ def test_realistic_cells_many_chunks_with_nan_cells():
     for key in stats:
         np.testing.assert_array_equal(ref_stats[key], stats[key][:, pick])
     np.testing.assert_array_equal(frost_depth_conduction(sub, d[pick]), frost[pick])
+    # without the extremum search: the same closed-form outputs (exact exp vs the kernel's
+    # polynomial exp: equal to rounding), NaN in the same cells
+    closed = depth_statistics(fit, d, depths, extremes=False)
+    assert set(closed) == {"t_mean", "amplitude", "phase_lag"}
+    for key, val in closed.items():
+        np.testing.assert_allclose(val, stats[key], rtol=1e-14, atol=0)
+        assert np.all(np.isnan(val[:, bad])), key
 
 
 def _dense_min(mean, cos_c, sin_c, d, z, n_t=20000):

@@ -1198,9 +1198,12 @@ def _flatten_cells(fit: HarmonicFit, damping_depth_m: ArrayLike):
 
 
 def depth_statistics(
-    fit: HarmonicFit, damping_depth_m: ArrayLike, depths_m: ArrayLike
+    fit: HarmonicFit, damping_depth_m: ArrayLike, depths_m: ArrayLike, extremes: bool = True
 ) -> dict[str, NDArray[np.float64]]:
     """Annual-cycle statistics of the periodic solution at several depths.
+
+    With ``extremes=False`` only the closed-form ``t_mean``, ``amplitude`` and
+    ``phase_lag`` are returned (no extremum search: for runs that map none of the others).
 
     For one harmonic the extremes are closed-form (``mean +- A exp(-z/d)``). For more:
 
@@ -1264,6 +1267,17 @@ def depth_statistics(
     n_cells = mean.shape[0]
     n_depths = depths.shape[0]
     h = cos_coef.shape[0]
+    if not extremes:
+        valid = np.isfinite(mean) & (dd > 0.0) & np.all(np.isfinite(cos_coef), axis=0) & np.all(
+            np.isfinite(sin_coef), axis=0)
+        d_valid = np.where(valid, dd, np.nan)[None, :]
+        z = depths[:, None]
+        closed = {
+            "t_mean": np.broadcast_to(np.where(valid, mean, np.nan), (n_depths, n_cells)),
+            "amplitude": amplitude_at_depth(np.hypot(cos_coef[0], sin_coef[0]), d_valid, z),
+            "phase_lag": phase_lag_days(d_valid, z),
+        }
+        return {key: val.reshape((n_depths,) + shape) for key, val in closed.items()}
 
     out = {
         key: np.empty((n_depths, n_cells))
