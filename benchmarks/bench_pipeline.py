@@ -26,6 +26,7 @@ the wall times are only comparable when it is near zero; CPU seconds are more ro
     python benchmarks/bench_pipeline.py                  # 2048 4096 8192
     python benchmarks/bench_pipeline.py --sizes 1024 2048
     python benchmarks/bench_pipeline.py --workers 2      # pipeline on a local cluster
+    python benchmarks/bench_pipeline.py --machinery      # + the pipeline without the model
 
 A benchmark, not a test: nothing here asserts wall times.
 """
@@ -103,6 +104,26 @@ def child_floor(data: Path, out: Path) -> dict:
         s.close()
     t2 = time.perf_counter()
     return {"write_s": t1 - t0, "overviews_s": t2 - t1}
+
+
+def child_machinery(recipe: Path, out: Path) -> dict:
+    """The pipeline (threaded, default settings) with the model replaced by the floor's
+    values (input bands + 0.5): what reading, tiling, compressing, overviews and COG
+    assembly cost without any physics."""
+    import numpy as np
+
+    from geothermmap import pipeline
+    from geothermmap.kernel import KernelResult, output_band_count
+
+    def floor_values(inputs, config):
+        base = np.concatenate([inputs[n] for n in INPUTS])
+        outputs = {name: base[:output_band_count(name, config)] + np.float32(0.5)
+                   for name in config.outputs}
+        return KernelResult(outputs, {}, base[0].size, 0)
+
+    pipeline.compute_block = floor_values
+    pipeline.run_recipe(recipe, out)
+    return {}
 
 
 # ------------------------------------------------------------------------ parent side
@@ -206,6 +227,9 @@ def main() -> None:
     parser.add_argument("--workers", type=int, default=None,
                         help="run the pipeline on a local cluster of N worker processes")
     parser.add_argument("--json", type=Path, default=None, help="also write rows as JSON")
+    parser.add_argument("--machinery", action="store_true",
+                        help="also time the pipeline with the model replaced by the floor's "
+                             "values (the cost of everything but the physics)")
     parser.add_argument("--child", nargs="+", help=argparse.SUPPRESS)
     parser.add_argument("--measure", action="store_true", help=argparse.SUPPRESS)
     parser.add_argument("argv", nargs="*", help=argparse.SUPPRESS)
@@ -219,6 +243,8 @@ def main() -> None:
             child_generate(Path(rest[0]), int(rest[1]))
         elif kind == "floor":
             print(json.dumps(child_floor(Path(rest[0]), Path(rest[1]))))
+        elif kind == "machinery":
+            print(json.dumps(child_machinery(Path(rest[0]), Path(rest[1]))))
         return
 
     RUNS.mkdir(parents=True, exist_ok=True)
@@ -236,6 +262,12 @@ def main() -> None:
         floor = run_child(_wrapped([sys.executable, __file__, "--child", "floor", str(data),
                                     str(run_dir / "floor")]), logs / f"floor{size}.log")
         shutil.rmtree(run_dir / "floor", ignore_errors=True)
+        machinery = None
+        if args.machinery:
+            machinery = run_child(_wrapped([sys.executable, __file__, "--child", "machinery",
+                                            str(recipe), str(run_dir / "machinery")]),
+                                  logs / f"machinery{size}.log")
+            shutil.rmtree(run_dir / "machinery", ignore_errors=True)
         cmd = [sys.executable, "-m", "geothermmap.cli", "run", str(recipe), "-o",
                str(run_dir / "pipeline"), "-q"]
         if args.workers:
@@ -252,6 +284,8 @@ def main() -> None:
             "pipeline_s": pipe["wall_s"], "pipeline_cpu_s": pipe["cpu_s"],
             "peak_rss_mib": pipe["peak_rss_mib"], "timings": rec.get("timings", {}),
         })
+        if machinery:
+            rows[-1].update(machinery_s=machinery["wall_s"], machinery_cpu_s=machinery["cpu_s"])
         shutil.rmtree(run_dir, ignore_errors=True)
         _print(rows)
     if args.json:
@@ -270,6 +304,11 @@ def _print(rows: list[dict]) -> None:
               f"{r['pipeline_s'] / r['floor_s']:>6.2f} {mc / r['pipeline_s']:>8.2f} "
               f"{r['pipeline_s'] / mc:>8.2f} {r['peak_rss_mib']:>12.0f} "
               f"{r['floor_cpu_s']:>11.1f} {r['pipeline_cpu_s']:>10.1f} {r['load']:>5.1f}")
+    for r in rows:
+        if "machinery_s" in r:
+            print(f"{r['grid']:>11}: pipeline without the model {r['machinery_s']:.1f} s "
+                  f"(ratio {r['machinery_s'] / r['floor_s']:.2f}, "
+                  f"{r['machinery_cpu_s']:.1f} CPU s)")
     print("pipeline phases (run record, s): "
           + "; ".join(f"{r['grid']}: " + ", ".join(f"{k.removesuffix('_s')} {v:.1f}"
                                                    for k, v in r["timings"].items())
