@@ -13,7 +13,7 @@ import numpy as np
 from rasterio.errors import RasterioError
 
 from geothermmap.errors import InputError
-from geothermmap.raster.inputs import InputLayer, sample_values
+from geothermmap.raster.inputs import SAMPLE_BUDGET_CELLS, InputLayer, sample_values
 
 
 def _finite(values: np.ndarray) -> np.ndarray:
@@ -27,6 +27,8 @@ def check_units(layer: InputLayer, declared_units: str, where: str) -> list[str]
         warnings.simplefilter("ignore", RuntimeWarning)
         try:
             v = _finite(sample_values(layer))
+            if v.size == 0:  # the sampled blocks are all nodata: look wider before failing
+                v = _finite(sample_values(layer, budget_cells=64 * SAMPLE_BUDGET_CELLS))
         except RasterioError as err:
             raise InputError(f"input '{layer.name}' ({where}): cannot read the raster ({err}); "
                              "the file may be truncated or corrupt") from None

@@ -274,27 +274,29 @@ def coverage_fraction(layer: InputLayer, grid: TargetGrid) -> float:
 
 #: Cells per band that :func:`sample_values` may decompress: a bounded plausibility sample,
 #: so that planning a run costs the same on a 1000 and a 20000 pixel wide grid.
-SAMPLE_BUDGET_CELLS = 4_000_000
+SAMPLE_BUDGET_CELLS = 1_048_576  # four 512 px blocks: checks cost ~0.05 s a layer
 
 
-def _sample_windows(ds, max_side: int) -> tuple[list[Window], int]:
+def _sample_windows(ds, max_side: int, budget_cells: int = SAMPLE_BUDGET_CELLS
+                    ) -> tuple[list[Window], int]:
     """Whole source blocks spread evenly over the raster, and a stride within them.
 
     Reading a window of a compressed tiled file decompresses every tile it touches, so
-    the sample is made of whole blocks (at most :data:`SAMPLE_BUDGET_CELLS` cells), each
-    decimated to about ``max_side**2`` values in total.
+    the sample is made of whole blocks (at most ``budget_cells`` cells), each decimated
+    to about ``max_side**2`` values in total. The blocks sit at the centres of an even
+    grid of the raster, not at its corners (a region's nodata margin is often there).
     """
     bh, bw = (min(int(v), lim) for v, lim in zip(ds.block_shapes[0], (ds.height, ds.width),
                                                  strict=True))
     nby, nbx = math.ceil(ds.height / bh), math.ceil(ds.width / bw)
-    max_blocks = max(1, SAMPLE_BUDGET_CELLS // (bh * bw))
+    max_blocks = max(1, budget_cells // (bh * bw))
     if nby * nbx <= max_blocks:
         rows, cols = range(nby), range(nbx)
     else:
         ky = min(nby, max(1, round(math.sqrt(max_blocks * nby / nbx))))
         kx = min(nbx, max(1, max_blocks // ky))
-        rows = sorted({round(i * (nby - 1) / max(ky - 1, 1)) for i in range(ky)})
-        cols = sorted({round(j * (nbx - 1) / max(kx - 1, 1)) for j in range(kx)})
+        rows = sorted({int((i + 0.5) * nby / ky) for i in range(ky)})
+        cols = sorted({int((j + 0.5) * nbx / kx) for j in range(kx)})
     windows = [Window(c * bw, r * bh, min(bw, ds.width - c * bw), min(bh, ds.height - r * bh))
                for r in rows for c in cols]
     cells = sum(int(w.width) * int(w.height) for w in windows)
@@ -302,7 +304,8 @@ def _sample_windows(ds, max_side: int) -> tuple[list[Window], int]:
     return windows, stride
 
 
-def sample_values(layer: InputLayer, max_side: int = 256) -> np.ndarray:
+def sample_values(layer: InputLayer, max_side: int = 256,
+                  budget_cells: int = SAMPLE_BUDGET_CELLS) -> np.ndarray:
     """A bounded sample of every band in native resolution, canonical units (for checks).
 
     Uses the file's overviews when it has them (a decimated read of about ``max_side``
@@ -321,7 +324,7 @@ def sample_values(layer: InputLayer, max_side: int = 256) -> np.ndarray:
                 parts = [ds.read(bands, out_shape=shape, out_dtype="float32",
                                  resampling=Resampling.nearest)]
             else:
-                windows, stride = _sample_windows(ds, max_side)
+                windows, stride = _sample_windows(ds, max_side, budget_cells)
                 # copy the decimated values: a strided view would keep each block alive
                 parts = [ds.read(bands, window=w, out_dtype="float32")[:, ::stride, ::stride]
                          .copy() for w in windows]
