@@ -110,9 +110,12 @@ class TileCodec:
         Pixel-interleaved (PlanarConfiguration 1), as GDAL's COG driver writes by default.
         """
         bands, rows, cols = tile.shape
-        full = np.empty((self.tile, self.tile, bands), dtype=self.dtype)
-        full[...] = self.nodata
-        full[:rows, :cols, :] = np.moveaxis(self.to_disk(tile), 0, -1)
+        if rows == cols == self.tile:  # no padding (one band: no copy at all)
+            full = np.ascontiguousarray(np.moveaxis(self.to_disk(tile), 0, -1))
+        else:
+            full = np.empty((self.tile, self.tile, bands), dtype=self.dtype)
+            full[...] = self.nodata
+            full[:rows, :cols, :] = np.moveaxis(self.to_disk(tile), 0, -1)
         if self.predictor == 3:
             full = imagecodecs.floatpred_encode(full, axis=-2)  # per row, all samples
         if self.compression == "deflate":
