@@ -141,3 +141,16 @@ def test_overviews_are_block_averages(tmp_path):
     assert np.array_equal(np.isnan(ovr), np.isnan(expected))
     # float32 output of a 4-value mean: GDAL may sum in float32, 1e-6 relative covers it
     np.testing.assert_allclose(ovr, expected, rtol=1e-6, equal_nan=True)
+
+
+def test_keep_freed_memory_is_safe_to_call_and_can_be_switched_off(monkeypatch):
+    # process-wide allocator setting (glibc mallopt); repeated calls and the opt-out must
+    # neither fail nor change numerical results
+    from geothermmap.pipeline import keep_freed_memory
+
+    keep_freed_memory()
+    keep_freed_memory()
+    monkeypatch.setenv("GEOTHERMMAP_KEEP_FREED_MEMORY", "0")
+    keep_freed_memory()
+    a = np.arange(2**20, dtype=np.float64)
+    assert float((a * 2.0).sum()) == float(2**20 * (2**20 - 1))
