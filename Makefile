@@ -23,7 +23,7 @@ lint: $(STAMP)
 	$(BIN)/ruff check geothermmap tests benchmarks
 
 bench: $(STAMP)
-	$(BIN)/python benchmarks/bench_pipeline.py
+	$(BIN)/python benchmarks/bench_pipeline.py --machinery
 
 clean:
 	rm -rf geothermmap-out .pytest_cache
