@@ -128,7 +128,8 @@ class RunPlan:
     def context(self) -> RunContext:
         tile = tile_size(self.chunk)
         codecs = {name: tile_codec(OUTPUTS[name].dtype, self.recipe.compression,
-                                   OUTPUTS[name].coded, tile) for name in self.outputs}
+                                   OUTPUTS[name].coded, tile, self.recipe.mantissa_bits)
+                  for name in self.outputs}
         levels = min(overview_count(self.grid.width, self.grid.height),
                      min(c.max_levels for c in codecs.values()))
         return RunContext(self.grid, self.layers, self.config, codecs, levels)
@@ -750,6 +751,9 @@ def output_tags(plan: RunPlan, name: str) -> dict[str, str]:
     }
     if info.per_depth:
         tags["depths_m"] = ",".join(f"{d:g}" for d in plan.config.depths_m)
+    if plan.recipe.mantissa_bits is not None and info.dtype == "float32":
+        tags["mantissa_bits"] = (f"{plan.recipe.mantissa_bits} of 23: values rounded to "
+                                 f"a relative {2.0 ** -(plan.recipe.mantissa_bits + 1):.1e}")
     if info.frost:
         tags["caution"] = FROST_CAUTION
     module = group_module(info.group) if info.group != "core" else None

@@ -185,6 +185,7 @@ class Recipe(_Strict):
     chunk: int | None = None
     zero_amplitude_tolerance: float = Field(0.1, gt=0.0)
     compression: Literal["deflate", "zstd", "lzw"] = "deflate"
+    mantissa_bits: int | None = Field(None, ge=1, le=23)
     freeze_thaw: FreezeThawSpec = FreezeThawSpec()
     surface: SurfaceSpec = SurfaceSpec()
     frost_classes: list[float] = Field(default_factory=lambda: [0.5, 1.0, 1.5, 2.0])

@@ -168,3 +168,45 @@ def test_misaligned_block_is_refused(tmp_path):
     with pytest.raises(ValueError, match="not aligned"):
         write_block(tmp_path / "b.tiles", {"x": np.zeros((1, 10, 10), np.float32)},
                     {"x": codec}, Window(5, 0, 10, 10), 1)
+
+
+def _round_reference(x: float, keep: int) -> float:
+    """Independent bit rounding: frexp, scale the mantissa to keep + 1 significant bits,
+    Python's round() (ties to even), scale back (exact in float64 for float32 inputs)."""
+    import math
+
+    if not math.isfinite(x) or x == 0.0:
+        return x
+    m, e = math.frexp(x)  # x = m 2**e, 0.5 <= |m| < 1: keep + 1 significant bits
+    return math.ldexp(round(math.ldexp(m, keep + 1)), e - keep - 1)
+
+
+@pytest.mark.parametrize("keep", [1, 7, 12, 16, 22])
+def test_round_mantissa_matches_an_independent_rounding(keep):
+    # Bit rounding (Kloewer et al. 2021, Nature Computational Science 1, 713-724):
+    # round to nearest, ties to even, on the kept mantissa bits.
+    rng = np.random.default_rng(keep)
+    x = np.concatenate([
+        rng.normal(0.0, 30.0, 3000), rng.uniform(1e-7, 1e-5, 200), [0.0, -0.0, 1.0, -2.5],
+        # exact ties: halfway between two kept values, both parities of the kept bit
+        [1.0 + 2.0 ** -(keep + 1), 1.0 + 3 * 2.0 ** -(keep + 1), -(1.0 + 2.0 ** -(keep + 1))],
+    ]).astype(np.float32)
+    got = cog.round_mantissa(x, keep)
+    ref = np.array([_round_reference(float(v), keep) for v in x], dtype=np.float64)
+    np.testing.assert_array_equal(got.astype(np.float64), ref)
+    finite = x != 0
+    rel = np.abs(got[finite].astype(np.float64) / x[finite].astype(np.float64) - 1.0)
+    assert rel.max() <= 2.0 ** -(keep + 1)
+    # the dropped bits are zero, and rounding twice changes nothing
+    assert not np.any(got.view(np.uint32) & np.uint32((1 << (23 - keep)) - 1))
+    np.testing.assert_array_equal(cog.round_mantissa(got, keep), got)
+
+
+def test_round_mantissa_keeps_nan_inf_and_refuses_bad_bit_counts():
+    x = np.array([np.nan, np.inf, -np.inf, 3.0], dtype=np.float32)
+    got = cog.round_mantissa(x, 5)
+    assert np.isnan(got[0]) and got[1] == np.inf and got[2] == -np.inf and got[3] == 3.0
+    np.testing.assert_array_equal(cog.round_mantissa(x[3:], 23), x[3:])
+    for bad in (0, 24):
+        with pytest.raises(ValueError):
+            cog.round_mantissa(x, bad)

@@ -212,3 +212,34 @@ def test_kelvin_input_equals_celsius_input(tmp_path):
     b = run_recipe(recipe, tmp_path / "b")
     # float32 storage of Kelvin values keeps ~1e-5 K: compare at that precision
     np.testing.assert_allclose(_read(a.outputs["t_mean"]), _read(b.outputs["t_mean"]), atol=5e-5)
+
+
+def test_mantissa_bits_rounds_float_maps_within_the_stated_bound(tmp_path):
+    # opt-in precision limit: every float value within a relative 2**-(bits + 1) of the
+    # full-precision run (bit rounding, Kloewer et al. 2021), NaN where it was NaN, smaller
+    # files, the limit recorded in the tags; the default keeps every bit
+    files = make_case(tmp_path)
+    full = run_recipe(write_recipe(tmp_path, files), tmp_path / "full")
+    rounded = run_recipe(write_recipe(tmp_path, files, mantissa_bits=10), tmp_path / "r10")
+    smaller = 0
+    for name, path in full.outputs.items():
+        a, b = _read(path), _read(rounded.outputs[name])
+        np.testing.assert_array_equal(np.isnan(a), np.isnan(b))
+        ok = np.isfinite(a) & (a != 0)
+        assert np.all(np.abs(b[ok] / a[ok] - 1.0) <= 2.0 ** -11), name
+        with rasterio.open(rounded.outputs[name]) as src:
+            if src.dtypes[0] == "float32":
+                assert src.tags()["mantissa_bits"].startswith("10 of 23"), name
+        smaller += rounded.outputs[name].stat().st_size < path.stat().st_size
+        with rasterio.open(path) as src:
+            assert "mantissa_bits" not in src.tags()
+    assert smaller >= len(full.outputs) // 2
+
+
+def test_mantissa_bits_out_of_range_is_a_recipe_error(tmp_path):
+    from geothermmap.errors import RecipeError
+    from geothermmap.recipe import load_recipe
+
+    files = make_case(tmp_path)
+    with pytest.raises(RecipeError, match="mantissa_bits"):
+        load_recipe(write_recipe(tmp_path, files, mantissa_bits=24))

@@ -65,13 +65,16 @@ def block_size(chunk: int) -> int:
     return -(-chunk // tile) * tile
 
 
-def tile_codec(dtype: str, compression: str, coded: bool, tile: int = TILE) -> TileCodec:
+def tile_codec(dtype: str, compression: str, coded: bool, tile: int = TILE,
+               mantissa_bits: int | None = None) -> TileCodec:
     """The tile codec of an output: nodata NaN (floats) or 0 (classes), nearest overviews
-    for classes and coded maps (codes must not be averaged with values)."""
+    for classes and coded maps (codes must not be averaged with values), float values
+    rounded to ``mantissa_bits`` (None: all 23 kept)."""
     level = int(COMPRESSION_OPTIONS[compression].get("LEVEL", 1))
     nodata = 0.0 if dtype == "uint8" else float("nan")
     return TileCodec(dtype=dtype, nodata=nodata, compression=compression, level=level,
-                     nearest=coded or dtype == "uint8", tile=tile)
+                     nearest=coded or dtype == "uint8", tile=tile,
+                     mantissa_bits=23 if mantissa_bits is None else mantissa_bits)
 
 
 def overview_count(width: int, height: int, smallest: int = 256) -> int:
