@@ -154,3 +154,19 @@ def test_keep_freed_memory_is_safe_to_call_and_can_be_switched_off(monkeypatch):
     keep_freed_memory()
     a = np.arange(2**20, dtype=np.float64)
     assert float((a * 2.0).sum()) == float(2**20 * (2**20 - 1))
+
+
+@pytest.mark.parametrize("block", [(1, 17000), (512, 512), (256, 256), (16, 17000)])
+def test_unit_check_sample_stays_within_its_budget(block):
+    # the plausibility sample must not grow with the grid, for striped files too
+    from geothermmap.raster.inputs import SAMPLE_BUDGET_CELLS, _sample_windows
+
+    class _Dataset:  # only what _sample_windows reads
+        height = width = 17000
+        block_shapes = [block]
+
+    windows, _ = _sample_windows(_Dataset(), 256)
+    cells = sum(int(w.width) * int(w.height) for w in windows)
+    assert 0 < cells <= SAMPLE_BUDGET_CELLS
+    rows = {int(w.row_off) for w in windows}
+    assert min(rows) > 0 and max(rows) < 17000 - block[0]  # not only the raster's edges

@@ -293,7 +293,7 @@ def _sample_windows(ds, max_side: int, budget_cells: int = SAMPLE_BUDGET_CELLS
     if nby * nbx <= max_blocks:
         rows, cols = range(nby), range(nbx)
     else:
-        ky = min(nby, max(1, round(math.sqrt(max_blocks * nby / nbx))))
+        ky = min(nby, max_blocks, max(1, round(math.sqrt(max_blocks * nby / nbx))))
         kx = min(nbx, max(1, max_blocks // ky))
         rows = sorted({int((i + 0.5) * nby / ky) for i in range(ky)})
         cols = sorted({int((j + 0.5) * nbx / kx) for j in range(kx)})
