@@ -132,42 +132,44 @@ def apply_bounds(
     counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
     out = dict(cells)
 
-    def violation(name: str, mask: np.ndarray, what: str) -> None:
+    def violation(name: str, mask: np.ndarray, what: str) -> int:
         n = int(np.count_nonzero(mask))
         counts[name] += n
         if strict and n:
             r, c = _first_cell(mask, valid_index, shape)
             raise CellBoundsError(f"{what} (first at {{where}}); fix the input or set "
                                   "strict: false to clip and count", r, c)
+        return n  # the corrections below only run where there is something to correct
 
     for key in ("sand", "clay", "water_content", "organic_matter", "quartz"):
         if key in out:
             neg = out[key] < 0
-            violation("negative_values_clipped", neg, f"negative {key}")
-            out[key] = np.where(neg, 0.0, out[key])
+            if violation("negative_values_clipped", neg, f"negative {key}"):
+                out[key] = np.where(neg, 0.0, out[key])
     for key in ("sand", "clay", "organic_matter", "quartz"):
         if key in out:
             big = out[key] > 1
-            violation("fraction_above_1_clipped", big, f"{key} above 100 %")
-            out[key] = np.where(big, 1.0, out[key])
+            if violation("fraction_above_1_clipped", big, f"{key} above 100 %"):
+                out[key] = np.where(big, 1.0, out[key])
     total = out["sand"] + out["clay"]
     over = total > 1.0
-    violation("texture_sum_above_100_percent_rescaled", over, "sand + clay above 100 %")
-    scale = np.where(over, 1.0 / np.where(over, total, 1.0), 1.0)
-    out["sand"] = out["sand"] * scale
-    out["clay"] = out["clay"] * scale
+    if violation("texture_sum_above_100_percent_rescaled", over, "sand + clay above 100 %"):
+        scale = np.where(over, 1.0 / np.where(over, total, 1.0), 1.0)
+        out["sand"] = out["sand"] * scale
+        out["clay"] = out["clay"] * scale
 
     rho_s = properties.particle_density(out["organic_matter"])
     too_dense = out["bulk_density"] >= rho_s
-    violation("bulk_density_above_particle_density_masked", too_dense,
-              "bulk density at or above particle density")
+    n_dense = violation("bulk_density_above_particle_density_masked", too_dense,
+                        "bulk density at or above particle density")
     keep = ~too_dense
-    # masked cells get a harmless density so the property models see valid numbers
-    out["bulk_density"] = np.where(keep, out["bulk_density"], 0.5 * rho_s)
+    if n_dense:  # masked cells get a harmless density so the property models see numbers
+        out["bulk_density"] = np.where(keep, out["bulk_density"], 0.5 * rho_s)
     phi = properties.porosity(out["bulk_density"], rho_s)
     wet = out["water_content"] > phi
     violation("water_above_porosity_clipped", wet & keep, "water content above porosity")
-    out["water_content"] = np.where(wet, phi, out["water_content"])
+    if wet.any():
+        out["water_content"] = np.where(wet, phi, out["water_content"])
     return out, counts, keep
 
 
