@@ -98,8 +98,13 @@ def test_n_factor_conversion():
     np.testing.assert_allclose(
         fr.freezing_index_per_winter(t_s)[0], 0.7 * fr.freezing_index_per_winter(t_air)[0]
     )
+    # TM 5-852-4 / AFM 88-19 Chap. 4, Table 4-1 (reproduced in UFC 3-130-04): the recipe
+    # defaults are its bare-soil row, and a few rows as printed there
+    assert fr.N_FACTORS["bare_soil"] == (0.7, 1.4)
+    assert fr.N_FACTORS["turf"] == (0.5, 0.8)
+    assert fr.N_FACTORS["portland_cement_concrete"] == (0.75, 1.5)
     for n_f, n_t in fr.N_FACTORS.values():  # table rows are physical ratios
-        assert 0.0 < n_f <= 1.0 and 0.0 < n_t <= 2.5
+        assert 0.0 < n_f <= 1.0 and (np.isnan(n_t) or 0.0 < n_t <= 2.5)
 
 
 # ----------------------------------------------------------- Stefan, Berggren

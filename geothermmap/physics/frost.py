@@ -49,17 +49,22 @@ __all__ = [
 
 SECONDS_PER_DAY = 86400.0
 
-#: Typical n-factors (freezing, thawing) = surface / air degree-day ratios, by surface.
-#: Lunardini (1978) "Theory of n-factors and correlation of data", Proc. 3rd Int. Conf.
-#: Permafrost, and the tables reproduced in Andersland & Ladanyi (2004, Table 3.x) and
-#: U.S. Army TM 5-852-6 (1988). Values from memory; the ranges in those tables are wide
-#: (snow cover alone moves the freezing n-factor between about 0.3 and 1).
+#: n-factors (freezing, thawing) = surface / air degree-day ratios, by surface, for
+#: surfaces exposed to sun and air with no building heat: U.S. Army / Air Force
+#: TM 5-852-4 / AFM 88-19 Chap. 4, Arctic and Subarctic Construction: Foundations for
+#: Structures, Table 4-1 (as reproduced in UFC 3-130-04). Where the table gives a range
+#: ("1.6 to 2+", "1.4 to 2+") its lower end is used; the snow row has no thawing value
+#: (NaN: a thawing season without snow belongs to another surface type). Site values
+#: vary widely (Lunardini 1978): snow depth alone moves the freezing n-factor of
+#: vegetated ground between about 0.3 and 1.
 N_FACTORS: dict[str, tuple[float, float]] = {
-    "snow_covered_ground": (0.5, 1.0),  # from memory
-    "turf_grass": (0.5, 1.0),  # from memory (thawing 0.8-1.0)
-    "bare_soil_or_gravel": (0.9, 1.4),  # from memory (thawing up to 2.0 for gravel)
-    "asphalt_pavement": (0.9, 1.8),  # from memory (thawing 1.4-2.3)
-    "concrete_pavement": (0.8, 1.5),  # from memory (thawing 1.3-2.1)
+    "snow_surface": (1.0, float("nan")),
+    "portland_cement_concrete": (0.75, 1.5),
+    "bituminous_pavement": (0.7, 1.6),  # thawing 1.6 to 2+
+    "bare_soil": (0.7, 1.4),  # thawing 1.4 to 2+; the recipe defaults
+    "shaded_surface": (0.9, 1.0),
+    "turf": (0.5, 0.8),
+    "tree_covered": (0.3, 0.4),
 }
 
 
