@@ -863,6 +863,16 @@ def _chunk_buffers(h, nc):
 
 
 @njit(cache=True, nogil=True)
+def _newton_buffers(nc):
+    """Work arrays of the Newton passes for one chunk of nc cells: transform scratch
+    (tmp, ib), state (c, s, u, f), harmonic terms (ck, sk), derivatives (f1, f2) and the
+    copies of :func:`_chunk_newton` (keep, kept)."""
+    return (np.empty((3, nc)), np.empty(nc, dtype=np.int64), np.empty(nc), np.empty(nc),
+            np.empty(nc), np.empty(nc), np.empty(nc), np.empty(nc), np.empty(nc),
+            np.empty(nc), np.empty((4, nc)), np.empty(nc, dtype=np.bool_))
+
+
+@njit(cache=True, nogil=True)
 def _extrema_kernel(
     mean, cos_coef, sin_coef, dd, depths, m,
     t_min, t_max, doy_min, doy_max, t_mean, amplitude, phase_lag,
@@ -879,22 +889,11 @@ def _extrema_kernel(
     v = np.empty(m)
     nc = _CHUNK
     amp, er, ei, al, be, phi1, inv_d, r, rho, marg_hi, marg_lo = _chunk_buffers(h, nc)
-    tmp = np.empty((3, nc))
-    ib = np.empty(nc, dtype=np.int64)
+    tmp, ib, c, s, u, f, ck, sk, f1, f2, keep, kept = _newton_buffers(nc)
     fb = ib.view(np.float64)
     valid = np.empty(nc, dtype=np.bool_)
-    c = np.empty(nc)
-    s = np.empty(nc)
-    u = np.empty(nc)
-    f = np.empty(nc)
-    ck = np.empty(nc)
-    sk = np.empty(nc)
-    f1 = np.empty(nc)
-    f2 = np.empty(nc)
     ok_hi = np.empty(nc, dtype=np.bool_)
     ok_lo = np.empty(nc, dtype=np.bool_)
-    keep = np.empty((4, nc))
-    kept = np.empty(nc, dtype=np.bool_)
     c_hi = np.empty(nc)
     s_hi = np.empty(nc)
     u_hi = np.empty(nc)
@@ -1073,21 +1072,10 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
         return
     nc = _CHUNK
     amp, er, ei, al, be, phi1, inv_d, r, rho, marg_hi, marg_lo = _chunk_buffers(h, nc)
-    tmp = np.empty((3, nc))
-    ib = np.empty(nc, dtype=np.int64)
+    tmp, ib, c, s, u, f, ck, sk, f1, f2, keep, kept = _newton_buffers(nc)
     fb = ib.view(np.float64)
-    c = np.empty(nc)
-    s = np.empty(nc)
-    u = np.empty(nc)
-    f = np.empty(nc)
-    ck = np.empty(nc)
-    sk = np.empty(nc)
-    f1 = np.empty(nc)
-    f2 = np.empty(nc)
     ok = np.empty(nc, dtype=np.bool_)
     slope = np.empty(nc)
-    keep = np.empty((4, nc))
-    kept = np.empty(nc, dtype=np.bool_)
     z = np.empty(nc)
     lo = np.empty(nc)
     hi = np.empty(nc)
