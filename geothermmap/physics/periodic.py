@@ -854,7 +854,7 @@ def _newton_steps(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_
             f[j] += 0.5 * f1[j] * x
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=True, nogil=True)
 def _chunk_buffers(h, nc):
     """Work arrays of the vectorised fast path for one chunk of nc cells, h harmonics."""
     return (np.empty((h, nc)), np.zeros((h, nc)), np.zeros((h, nc)), np.empty((h, nc)),
@@ -862,15 +862,11 @@ def _chunk_buffers(h, nc):
             np.empty(nc), np.empty(nc))
 
 
-@njit(cache=True, nogil=True, inline="always")
+@njit(cache=True, nogil=True)
 def _newton_buffers(nc):
     """Work arrays of the Newton passes for one chunk of nc cells: transform scratch
     (tmp, ib), state (c, s, u, f), harmonic terms (ck, sk), derivatives (f1, f2) and the
-    copies of :func:`_chunk_newton` (keep, kept).
-
-    Inlined by numba (as is :func:`_chunk_buffers`): arrays returned from a compiled call
-    are opaque to LLVM's alias analysis, which then vectorised the chunk loops less well
-    (~10 % slower extremum search); inlined, the allocations are the caller's own."""
+    copies of :func:`_chunk_newton` (keep, kept)."""
     return (np.empty((3, nc)), np.empty(nc, dtype=np.int64), np.empty(nc), np.empty(nc),
             np.empty(nc), np.empty(nc), np.empty(nc), np.empty(nc), np.empty(nc),
             np.empty(nc), np.empty((4, nc)), np.empty(nc, dtype=np.bool_))
