@@ -3,13 +3,14 @@
 Builds 512 x 512 = 262,144 cells of a plausible two-harmonic climate (mean 2..12 degC,
 annual amplitude 8..14 K, semi-annual 0.5..2.5 K, random phases, damping depth 1.5..3 m),
 warms numba up on a small slice, then times ``depth_statistics`` at depths
-(0.1, 0.5, 1, 2) m and ``frost_depth_conduction`` (best of ``--repeat`` runs, one core:
-the kernels are serial). Prints seconds and cells per second.
+(0.1, 0.5, 1, 2) m and ``frost_depth_conduction`` (median over ``--repeat`` rounds of
+the best of 2 runs, one core: the kernels are serial). Prints seconds and cells per second.
 
     .venv/bin/python benchmarks/bench_kernels.py [--side 512] [--repeat 5] [--harmonics 2]
         [--ref OLD_PERIODIC.py]
 
-``--ref`` also times (interleaved, same inputs) another copy of the module, e.g. an
+``--ref`` also times (interleaved rounds in alternating order, medians; same inputs)
+another copy of the module, e.g. an
 older version written out with ``git show REV:geothermmap/physics/periodic.py > FILE``,
 and prints the largest differences of its results from the current ones.
 """
@@ -82,8 +83,15 @@ def main() -> None:
     if args.ref:
         rows.append(("ref", load_module(args.ref)))
     print(f"cells {n:,}, harmonics {args.harmonics}, depths {DEPTHS}")
-    for name, module in rows:
-        t_stats, t_frost = time_module(module, fit, d, args.repeat)
+    # Rounds alternate the order of the modules (A B, B A, ...) and the median of the
+    # rounds is reported: whichever module is timed second in a process tends to look
+    # ~10 % faster on this machine, so a one-sided order would fake a difference.
+    times: dict[str, list[tuple[float, float]]] = {name: [] for name, _ in rows}
+    for rnd in range(max(1, args.repeat)):
+        for name, module in rows if rnd % 2 == 0 else rows[::-1]:
+            times[name].append(time_module(module, fit, d, 2))
+    for name, _ in rows:
+        t_stats, t_frost = np.median(np.array(times[name]), axis=0)
         for what, sec in (("depth_statistics", t_stats), ("frost_depth_conduction", t_frost)):
             print(f"{name:8s} {what:22s} {sec:7.3f} s  {n / sec / 1e6:7.2f} Mcells/s")
     if args.ref:
