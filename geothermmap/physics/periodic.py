@@ -500,10 +500,9 @@ def _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
 
 # Vectorised fast path. Cells are processed in chunks of _CHUNK with small scratch arrays;
 # every pass is one simple loop over the cells of a chunk (harmonics and iterations are
-# outer loops), which LLVM runs on SIMD lanes. A few Newton steps are followed by a check
-# that proves the result (see _newton_steps), and two more steps for the cells not yet
-# proven (_chunk_newton); a cell that still fails is redone by the scalar path above
-# (_extrema, _frost_cell), so the fast path changes speed only.
+# outer loops), which LLVM runs on SIMD lanes. A fixed number of Newton steps is followed
+# by a check that proves the result (see _chunk_newton); a cell that fails it is redone
+# by the scalar path above (_extrema, _frost_cell), so the fast path changes speed only.
 #
 # Frame of the fast path: at depth z, with r = z / d and phi_1 the surface phase of the
 # annual harmonic (a_1 = A_1 cos phi_1, b_1 = A_1 sin phi_1), the annual harmonic peaks at
@@ -521,9 +520,7 @@ def _cell_is_valid(mean, cos_coef, sin_coef, dd, i):
 # follow by angle addition: no trigonometric call inside the iteration.
 
 _CHUNK = 128  # cells per chunk: ~20 scratch arrays of this length stay in L1
-_FAST_FIRST = 3  # Newton steps in u for an extremum, proof checked after the 2nd
-# (enough where the annual harmonic dominates clearly: rho ~ 0.1, error then ~1e-8 rad)
-_FAST_ITER = 5  # Newton steps in all for the cells not proven after _FAST_FIRST
+_FAST_ITER = 5  # Newton steps in u for an extremum (typical need: 3-4)
 _FAST_TOL_RAD = 1e-6  # proven bound |F'| / min|F''| on the distance to the extremum [rad]
 # (= 5.8e-5 day) at the last evaluated point; after the last step the error is ~1e-12 rad
 _ROT_MAX = 0.5  # largest Newton step [rad] rotated by the Taylor polynomials below
@@ -762,43 +759,8 @@ def _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, 
             marg_lo[j] = -1.0
 
 
-@njit(cache=True, nogil=True)
-def _chunk_newton(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, active,
-                  n_first, n_iter, keep, kept):  # fmt: skip
-    """Newton steps as in :func:`_newton_steps`, ``n_first`` of them, then, only if some
-    ``active`` cell is not yet proven, up to ``n_iter`` in all for the cells that are not.
-
-    A cell proven after ``n_first`` steps keeps that result; the others get exactly the
-    result of ``n_iter`` straight steps (the state after k steps does not depend on where
-    the proof is checked). Either way a cell's result depends on that cell only.
-    ``keep`` (4, n) and ``kept`` (n,) are scratch arrays.
-    """
-    _newton_steps(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_first)
-    if n_iter <= n_first:
-        return
-    n_open = 0
-    for j in range(n):  # cells with marg <= 0 (or NaN) cannot be proven: not waited for
-        n_open += active[j] and marg[j] > 0.0 and not ok[j]
-    if n_open == 0:
-        return
-    for j in range(n):
-        kept[j] = ok[j]
-        keep[0, j] = c[j]
-        keep[1, j] = s[j]
-        keep[2, j] = u[j]
-        keep[3, j] = f[j]
-    _newton_steps(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_iter - n_first)
-    for j in range(n):
-        if kept[j]:
-            c[j] = keep[0, j]
-            s[j] = keep[1, j]
-            u[j] = keep[2, j]
-            f[j] = keep[3, j]
-            ok[j] = True
-
-
 @njit(cache=True, nogil=True, error_model="numpy")
-def _newton_steps(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_iter):
+def _chunk_newton(n, sign, al, be, rho, marg, c, s, u, f, ok, ck, sk, f1, f2, n_iter):
     """``n_iter`` Newton steps on d(sign F)/du from the states (c, s, u) = (cos u, sin u, u).
 
     Steps longer than _ROT_MAX are shortened to it (a damped step; the state stays exact).
@@ -865,11 +827,10 @@ def _chunk_buffers(h, nc):
 @njit(cache=True, nogil=True)
 def _newton_buffers(nc):
     """Work arrays of the Newton passes for one chunk of nc cells: transform scratch
-    (tmp, ib), state (c, s, u, f), harmonic terms (ck, sk), derivatives (f1, f2) and the
-    copies of :func:`_chunk_newton` (keep, kept)."""
+    (tmp, ib), state (c, s, u, f), harmonic terms (ck, sk), derivatives (f1, f2)."""
     return (np.empty((3, nc)), np.empty(nc, dtype=np.int64), np.empty(nc), np.empty(nc),
             np.empty(nc), np.empty(nc), np.empty(nc), np.empty(nc), np.empty(nc),
-            np.empty(nc), np.empty((4, nc)), np.empty(nc, dtype=np.bool_))
+            np.empty(nc))
 
 
 @njit(cache=True, nogil=True)
@@ -889,7 +850,7 @@ def _extrema_kernel(
     v = np.empty(m)
     nc = _CHUNK
     amp, er, ei, al, be, phi1, inv_d, r, rho, marg_hi, marg_lo = _chunk_buffers(h, nc)
-    tmp, ib, c, s, u, f, ck, sk, f1, f2, keep, kept = _newton_buffers(nc)
+    tmp, ib, c, s, u, f, ck, sk, f1, f2 = _newton_buffers(nc)
     fb = ib.view(np.float64)
     valid = np.empty(nc, dtype=np.bool_)
     ok_hi = np.empty(nc, dtype=np.bool_)
@@ -922,11 +883,9 @@ def _extrema_kernel(
                     s[j] = 0.0
                     u[j] = math.pi
                 _chunk_newton(n, 1.0, al, be, rho, marg_hi, c_hi, s_hi, u_hi, f_hi, ok_hi,
-                              ck, sk, f1, f2, valid, _FAST_FIRST, _FAST_ITER,
-                              keep, kept)  # fmt: skip
+                              ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
                 _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok_lo,
-                              ck, sk, f1, f2, valid, _FAST_FIRST, _FAST_ITER,
-                              keep, kept)  # fmt: skip
+                              ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
                 _chunk_write(n, i0, jd, mean, phi1, r, u_hi, f_hi, u, f, t_min, t_max,
                              doy_min, doy_max)  # fmt: skip
             for j in range(n):
@@ -1072,7 +1031,7 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
         return
     nc = _CHUNK
     amp, er, ei, al, be, phi1, inv_d, r, rho, marg_hi, marg_lo = _chunk_buffers(h, nc)
-    tmp, ib, c, s, u, f, ck, sk, f1, f2, keep, kept = _newton_buffers(nc)
+    tmp, ib, c, s, u, f, ck, sk, f1, f2 = _newton_buffers(nc)
     fb = ib.view(np.float64)
     ok = np.empty(nc, dtype=np.bool_)
     slope = np.empty(nc)
@@ -1134,7 +1093,7 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
         if n_check > 0:
             _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb)
             _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
-                          ck, sk, f1, f2, todo, _FAST_FIRST, _FAST_ITER, keep, kept)  # fmt: skip
+                          ck, sk, f1, f2, _FAST_ITER)  # fmt: skip
             for j in range(n):
                 if not todo[j]:
                     continue
@@ -1163,11 +1122,9 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
             if n_fast > 0:  # else only cells on the general search are left
                 _chunk_transform(r, n, amp, er, ei, al, be, rho, marg_hi, marg_lo, tmp, ib, fb)
                 # the first two depth steps move the minimiser most; later ones start close
-                # (no early stop here: the depth steps converge faster from minimisers
-                # found to full accuracy)
                 n_iter = _FAST_ITER if it < 2 else _FROST_TIME_ITER
                 _chunk_newton(n, -1.0, al, be, rho, marg_lo, c, s, u, f, ok,
-                              ck, sk, f1, f2, todo, n_iter, n_iter, keep, kept)  # fmt: skip
+                              ck, sk, f1, f2, n_iter)  # fmt: skip
                 _chunk_slope(n, al, be, c, s, inv_d, slope)
             for j in range(n):
                 if state[j] == 0:
