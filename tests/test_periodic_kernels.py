@@ -151,16 +151,21 @@ def test_extremes_near_the_fast_path_boundary():
     _check_against_reference(fit, d, [0.0, 0.1, 0.5])
 
 
+def _three_harmonic_fit(rng, n, a1_range, r2_range, r3_range, mean_range, d_range):
+    """n cells of three harmonics: annual amplitude in a1_range, the others as fractions
+    of it, random phases; mean and damping depth uniform in their ranges."""
+    a1 = rng.uniform(*a1_range, n)
+    amps = np.vstack([a1, rng.uniform(*r2_range, n) * a1, rng.uniform(*r3_range, n) * a1])
+    ph = rng.uniform(0, 2 * np.pi, (3, n))
+    fit = HarmonicFit(rng.uniform(*mean_range, n), amps * np.cos(ph), amps * np.sin(ph))
+    return fit, rng.uniform(*d_range, n)
+
+
 def test_strongly_non_sinusoidal_three_harmonics():
     # Large semi- and ter-annual harmonics: several local extrema per year, the fast path
     # fails its test and the sampled search runs. Reference: dense sampling + brentq.
-    rng = np.random.default_rng(22)
-    n = 12
-    a1 = rng.uniform(3, 10, n)
-    amps = np.vstack([a1, rng.uniform(0.3, 0.9, n) * a1, rng.uniform(0.2, 0.6, n) * a1])
-    ph = rng.uniform(0, 2 * np.pi, (3, n))
-    fit = HarmonicFit(rng.uniform(-5, 15, n), amps * np.cos(ph), amps * np.sin(ph))
-    d = rng.uniform(0.5, 3.0, n)
+    fit, d = _three_harmonic_fit(np.random.default_rng(22), 12, (3, 10), (0.3, 0.9),
+                                 (0.2, 0.6), (-5, 15), (0.5, 3.0))
     _check_against_reference(fit, d, [0.0, 0.4, 2.0])
 
 
@@ -216,6 +221,17 @@ def _brentq_frost(mean, cos_c, sin_c, d):
     return optimize.brentq(lambda z: _dense_min(mean, cos_c, sin_c, d, z), 0.0, upper, xtol=1e-9)
 
 
+def _check_frost_against_brentq(fit, d):
+    """frost_depth_conduction of every cell against brentq (no frost: the code 0)."""
+    got = frost_depth_conduction(fit, d)
+    for i in range(d.size):
+        args = (fit.mean[i], fit.cos_coef[:, i], fit.sin_coef[:, i], d[i])
+        if _dense_min(*args, 0.0) >= 0:
+            assert got[i] == FROST_NONE
+            continue
+        assert got[i] == pytest.approx(_brentq_frost(*args), abs=2e-5)
+
+
 def test_frost_depth_realistic_and_boundary_cells_vs_brentq():
     # scipy.optimize.brentq on the dense-sampled yearly minimum (20000 samples: minimum
     # good to ~1e-6 K, depth to ~1e-6 m). Cells range over the fast-path boundary (the
@@ -224,30 +240,13 @@ def test_frost_depth_realistic_and_boundary_cells_vs_brentq():
     n = 24
     fit = _two_harmonic_fit(rng, n, np.linspace(0.05, 0.32, n))
     d = rng.uniform(1.5, 3.0, n)
-    got = frost_depth_conduction(fit, d)
-    for i in range(n):
-        args = (fit.mean[i], fit.cos_coef[:, i], fit.sin_coef[:, i], d[i])
-        if _dense_min(*args, 0.0) >= 0:
-            assert got[i] == FROST_NONE
-            continue
-        assert got[i] == pytest.approx(_brentq_frost(*args), abs=2e-5)
+    _check_frost_against_brentq(fit, d)
 
 
 def test_frost_depth_three_harmonics_vs_brentq():
-    rng = np.random.default_rng(25)
-    n = 10
-    a1 = rng.uniform(6, 14, n)
-    amps = np.vstack([a1, rng.uniform(0.05, 0.5, n) * a1, rng.uniform(0.02, 0.3, n) * a1])
-    ph = rng.uniform(0, 2 * np.pi, (3, n))
-    fit = HarmonicFit(rng.uniform(0.5, 8, n), amps * np.cos(ph), amps * np.sin(ph))
-    d = rng.uniform(0.8, 3.0, n)
-    got = frost_depth_conduction(fit, d)
-    for i in range(n):
-        args = (fit.mean[i], fit.cos_coef[:, i], fit.sin_coef[:, i], d[i])
-        if _dense_min(*args, 0.0) >= 0:
-            assert got[i] == FROST_NONE
-            continue
-        assert got[i] == pytest.approx(_brentq_frost(*args), abs=2e-5)
+    fit, d = _three_harmonic_fit(np.random.default_rng(25), 10, (6, 14), (0.05, 0.5),
+                                 (0.02, 0.3), (0.5, 8), (0.8, 3.0))
+    _check_frost_against_brentq(fit, d)
 
 
 @pytest.mark.parametrize("a2", [2.0, 2.6])
