@@ -18,6 +18,7 @@ import threading
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
+from functools import cached_property
 from pathlib import Path
 from typing import Any
 
@@ -124,8 +125,9 @@ class RunPlan:
     notes: list[str] = field(default_factory=list)
     coverage: dict[str, float] = field(default_factory=dict)
 
-    @property
+    @cached_property
     def context(self) -> RunContext:
+        """What every block and map writer needs (built once per plan)."""
         tile = tile_size(self.chunk)
         codecs = {name: tile_codec(OUTPUTS[name].dtype, self.recipe.compression,
                                    OUTPUTS[name].coded, tile, self.recipe.mantissa_bits)
