@@ -16,7 +16,7 @@ import numpy as np
 
 from geothermmap.errors import PhysicalBoundsError
 from geothermmap.outputs import OUTPUTS
-from geothermmap.physics import harmonics, periodic, properties
+from geothermmap.physics import frost, harmonics, periodic, properties
 
 #: Names of the bounds counters reported in the run record.
 BOUNDS_COUNTERS = (
@@ -56,8 +56,11 @@ class CellState:
     ``inputs``: bounds-corrected canonical inputs (sand, clay, water_content, bulk_density,
     organic_matter, optional quartz, n_factor_freezing, n_factor_thawing); ``series``: the
     surface-temperature series as given, (12 x years, n) [degC]; ``monthly``: its monthly
-    climatology (12, n); ``props``: unfrozen soil properties; ``fit``: harmonic fit of
-    ``monthly``; ``damping_depth_m``: annual damping depth (n,).
+    climatology (12, n); ``props``: unfrozen soil properties; ``fit``: harmonic fit of the
+    ground-surface cycle (of ``monthly``, or with ``surface.kind: air`` of the air cycle
+    turned into ground-surface temperature by the n-factors); ``air_fit``: the harmonic
+    fit of ``monthly`` when that is air temperature, else None; ``damping_depth_m``:
+    annual damping depth (n,).
     """
 
     inputs: dict[str, np.ndarray]
@@ -67,6 +70,7 @@ class CellState:
     fit: Any
     damping_depth_m: np.ndarray
     config: KernelConfig
+    air_fit: Any = None
 
 
 #: Output groups computed by separate modules, each exposing
@@ -236,6 +240,11 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
         cells["organic_matter"], cells.get("quartz"), model=config.conductivity_model,
     )
     fit = harmonics.fit_harmonics(monthly_cells, config.harmonics)
+    air_fit = None
+    if config.extras.get("surface_kind") == "air":  # every output refers to the ground
+        air_fit = fit
+        fit = frost.ground_surface_harmonics(
+            air_fit, cells["n_factor_freezing"], cells["n_factor_thawing"])
     d1 = periodic.damping_depth(props["diffusivity_m2_s"])
     d1 = np.where(keep, d1, np.nan)
 
@@ -269,7 +278,8 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
         state = CellState(
             inputs=cells,
             series=take(t_surf).astype(np.float64),
-            monthly=monthly_cells, props=props, fit=fit, damping_depth_m=d1, config=config)
+            monthly=monthly_cells, props=props, fit=fit, damping_depth_m=d1, config=config,
+            air_fit=air_fit)
         done: set[str] = set()
         for group in sorted(groups):
             module = group_module(group)

@@ -7,7 +7,8 @@ Conventions (also written into the output tags):
 
 * ``surface.kind == air``: the daily air series is turned into ground-surface
   temperature with the n-factors (:func:`frost.surface_temperature_n_factor`) before
-  anything else; every frost output refers to the ground surface.
+  anything else; every frost output refers to the ground surface. (The periodic
+  outputs of the core use :func:`frost.ground_surface_harmonics` of the same series.)
 * Forcing: a 12-band climatology is forced with the daily series reconstructed from
   its harmonic fit (one periodic year of 365 steps of 365.25/365 d); a 12 x Y series
   with :func:`freezethaw.daily_forcing_from_monthly` (365-day years, 1-d steps).
@@ -80,8 +81,8 @@ def _settings(config: KernelConfig) -> dict:
 
 def _daily_forcing(state: CellState, kind: str) -> tuple[np.ndarray, float]:
     n_years = state.series.shape[0] // 12
-    if n_years <= 1:
-        fit = state.fit
+    if n_years <= 1:  # the air cycle itself: n-factors act on daily values below
+        fit = state.air_fit if kind == "air" and state.air_fit is not None else state.fit
         daily = freezethaw.daily_forcing_from_harmonics(fit.mean, fit.cos_coef, fit.sin_coef)
         dt = freezethaw.DAYS_PER_YEAR / 365
     else:

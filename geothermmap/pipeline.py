@@ -67,6 +67,7 @@ from geothermmap.recipe import (
     DEFAULT_ORGANIC_MATTER_PERCENT,
     INPUT_KINDS,
     UNIT_CONVERSIONS,
+    InputSpec,
     Recipe,
     load_recipe,
 )
@@ -177,8 +178,9 @@ def _target_grid(recipe: Recipe, first_temperature_path: Path | None) -> TargetG
     return grid_of(first_temperature_path, "surface_temperature")
 
 
-def _layer_paths(recipe: Recipe, name: str) -> list[Path] | None:
-    spec = recipe.inputs.get(name)
+def _layer_paths(recipe: Recipe, name: str, spec: InputSpec | None = None) -> list[Path] | None:
+    """Resolved paths of input ``name`` (``spec``: its spec when not under ``inputs``)."""
+    spec = spec if spec is not None else recipe.inputs.get(name)
     if spec is None or spec.path is None:
         return None
     paths = spec.path if isinstance(spec.path, list) else [spec.path]
@@ -232,21 +234,13 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
     layers: dict[str, InputLayer] = {}
     notes: list[str] = []
     specs = dict(recipe.inputs)
-    from geothermmap.recipe import InputSpec
-
     specs.setdefault("bulk_density", InputSpec(value=DEFAULT_BULK_DENSITY_G_CM3,
                                                units="g cm-3"))
     specs.setdefault("organic_matter", InputSpec(value=DEFAULT_ORGANIC_MATTER_PERCENT,
                                                  units="percent"))
-    if recipe.freeze_thaw.enabled and recipe.surface.kind == "air":
+    if recipe.surface.kind == "air":  # n-factors: inputs (if given there) or surface keys
         for key in ("n_factor_freezing", "n_factor_thawing"):
-            v = getattr(recipe.surface, key)
-            if isinstance(v, InputSpec):
-                specs.setdefault(key, v)
-            elif isinstance(v, str):
-                specs.setdefault(key, InputSpec(path=v, units="1"))
-            else:
-                specs.setdefault(key, InputSpec(value=float(v), units="1"))
+            specs.setdefault(key, recipe.surface.n_factor_spec(key))
     coverage: dict[str, float] = {}
     for name, spec in specs.items():
         if name not in _KERNEL_INPUTS:
@@ -255,7 +249,7 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
         units = spec.units or default_units
         scale, offset = UNIT_CONVERSIONS[kind][units]
         layer = open_layer(
-            name, _layer_paths(recipe, name), spec.value, scale, offset, grid,
+            name, _layer_paths(recipe, name, spec), spec.value, scale, offset, grid,
             band=spec.band, nodata=spec.nodata, expected_bands=EXPECTED_BANDS.get(name),
         )
         where = "constant" if layer.is_constant else ", ".join(s.path for s in layer.sources)
@@ -271,6 +265,11 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
                          "cells are nodata and counted in the run record")
         layers[name] = layer
 
+    if recipe.surface.kind == "air":
+        notes.append("surface.kind air: surface_temperature is air temperature; every output "
+                     "uses the ground-surface temperature from the n-factors "
+                     f"(freezing {_describe(specs['n_factor_freezing'])}, thawing "
+                     f"{_describe(specs['n_factor_thawing'])})")
     n_years = layers["surface_temperature"].n_bands // 12
     outputs = select_outputs(recipe, n_years)
     thresholds = recipe.thresholds.model_dump() if recipe.thresholds else None
@@ -302,6 +301,10 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
         nxt += n
     chunk = recipe.chunk or _default_chunk(layers["surface_temperature"])
     return RunPlan(recipe, grid, layers, config, chunk, outputs, layout, notes, coverage)
+
+
+def _describe(spec: InputSpec) -> str:
+    return f"{spec.value:g}" if spec.value is not None else str(spec.path)
 
 
 _KERNEL_INPUTS = ("surface_temperature", "sand", "clay", "water_content", "bulk_density",
@@ -758,6 +761,10 @@ def output_tags(plan: RunPlan, name: str) -> dict[str, str]:
                                  f"a relative {2.0 ** -(plan.recipe.mantissa_bits + 1):.1e}")
     if info.frost:
         tags["caution"] = FROST_CAUTION
+    if plan.recipe.surface.kind == "air":
+        tags["surface"] = ("ground surface temperature from the air-temperature input with "
+                           "the freezing and thawing n-factors (daily values; periodic outputs "
+                           "use the harmonic refit of that daily cycle)")
     module = group_module(info.group) if info.group != "core" else None
     if module is not None and hasattr(module, "tags"):
         tags.update(module.tags(plan.config).get(name, {}))

@@ -153,6 +153,26 @@ class SurfaceSpec(_Strict):
     n_factor_freezing: float | str | InputSpec = 0.7
     n_factor_thawing: float | str | InputSpec = 1.4
 
+    @field_validator("n_factor_freezing", "n_factor_thawing")
+    @classmethod
+    def _n_factor(cls, v: float | str | InputSpec) -> float | str | InputSpec:
+        if isinstance(v, str):
+            InputSpec(path=v)  # same path rules as the inputs (local files only)
+        value = v if isinstance(v, int | float) else getattr(v, "value", None)
+        if value is not None and not (0.0 < value < 10.0):  # NaN fails too
+            raise ValueError("an n-factor is a positive ratio of surface to air "
+                             "degree-days (typically 0.2..2.5)")
+        return v
+
+    def n_factor_spec(self, key: str) -> InputSpec:
+        """``n_factor_freezing`` or ``n_factor_thawing`` as an input spec."""
+        v = getattr(self, key)
+        if isinstance(v, InputSpec):
+            return v if v.units else v.model_copy(update={"units": "1"})
+        if isinstance(v, str):
+            return InputSpec(path=v, units="1")
+        return InputSpec(value=float(v), units="1")
+
 
 class RootZoneSpec(_Strict):
     top: float = Field(0.0, ge=0.0)

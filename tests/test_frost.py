@@ -85,6 +85,38 @@ def test_design_freezing_index():
 # ------------------------------------------------------------------ n-factors
 
 
+def test_ground_surface_harmonics_against_quadrature():
+    # Independent check with scipy.integrate.quad: for T_a = mu + A cos(w t) the
+    # ground-surface mean is (1/P) int n(T_a) T_a dt (Lunardini 1978 definition of
+    # n-factors on the degree-day integrals) and the annual cosine coefficient is
+    # (2/P) int n(T_a) T_a cos(w t) dt. Tolerance 0.01 K: 365 midpoint samples of a cycle
+    # with a kink at 0 degC (the quadrature itself is exact to 1e-10).
+    from scipy.integrate import quad
+
+    from geothermmap.physics.harmonics import HarmonicFit
+
+    period = 365.25
+    w = 2 * np.pi / period
+    mu = np.array([-3.0, 2.0, 6.0, 15.0])
+    amp = np.array([12.0, 10.0, 4.0, 8.0])
+    n_f, n_t = 0.5, 1.3
+    air = HarmonicFit(mu, np.vstack([amp, 0.3 * amp]), np.zeros((2, 4)))
+    got = fr.ground_surface_harmonics(air, n_f, n_t, cells_per_pass=3)  # two passes
+    for i in range(4):
+        def ground(t, i=i):
+            ta = mu[i] + amp[i] * np.cos(w * t) + 0.3 * amp[i] * np.cos(2 * w * t)
+            return (n_f if ta < 0 else n_t) * ta
+        mean = quad(ground, 0, period, limit=200)[0] / period
+        a1 = 2 * quad(lambda t, i=i: ground(t) * np.cos(w * t), 0, period, limit=200)[0] / period
+        assert got.mean[i] == pytest.approx(mean, abs=0.01)
+        assert got.cos_coef[0, i] == pytest.approx(a1, abs=0.01)
+        assert abs(got.sin_coef[0, i]) < 1e-9  # an even cycle stays even
+    # one factor for both seasons scales the whole cycle exactly
+    same = fr.ground_surface_harmonics(air, 0.8, 0.8)
+    np.testing.assert_allclose(same.mean, 0.8 * mu, rtol=1e-12)
+    np.testing.assert_allclose(same.cos_coef, 0.8 * air.cos_coef, rtol=1e-9, atol=1e-12)
+
+
 def test_n_factor_conversion():
     air = np.array([-10.0, -1.0, 0.0, 4.0, 20.0])
     # Lunardini (1978): T_s = n_f T_a below 0, n_t T_a above

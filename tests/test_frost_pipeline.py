@@ -186,6 +186,43 @@ def test_air_input_uses_n_factors():
     assert np.all(air["frost_depth_stefan"][0][cold] < ground["frost_depth_stefan"][0][cold])
 
 
+def test_air_input_drives_the_periodic_outputs_too():
+    # With kind: air every output refers to the ground surface: the periodic t_mean is
+    # the mean of the n-factored daily cycle (frost.ground_surface_harmonics), not the
+    # air mean; the freeze-thaw outputs keep using the daily n-factored series itself.
+    from geothermmap.kernel import KernelConfig, compute_block
+    from geothermmap.physics import frost as fr
+
+    inputs = _block_inputs(air=True)
+    cfg = KernelConfig(outputs=("t_mean", "t_min"), depths_m=(0.5,),
+                       extras={"surface_kind": "air"})
+    got = compute_block(inputs, cfg).outputs["t_mean"][0].ravel()
+    air = harmonics.fit_harmonics(
+        inputs["surface_temperature"].reshape(12, -1).astype(np.float64), 2)
+    want = fr.ground_surface_harmonics(air, 0.6, 1.2).mean
+    np.testing.assert_allclose(got, want, rtol=1e-6, atol=1e-5)  # float32 storage
+    ground = compute_block(inputs, KernelConfig(outputs=("t_mean",), depths_m=(0.5,)))
+    assert not np.allclose(got, ground.outputs["t_mean"][0].ravel())
+
+
+def test_raster_n_factors_under_surface(tmp_path):
+    # Contract: each n-factor under `surface:` is a constant or a raster path
+    files = make_case(tmp_path, width=40, height=30)
+    with rasterio.open(files["sand"]) as ds:
+        shape, crs, transform = (ds.height, ds.width), ds.crs, ds.transform
+    nf = write_tif(tmp_path / "nf.tif", np.full(shape, 0.5, np.float32), crs, transform)
+    recipe = write_recipe(tmp_path, files, outputs=["t_mean"],
+                          surface={"kind": "air", "n_factor_freezing": str(nf),
+                                   "n_factor_thawing": {"path": str(nf), "units": "1"}})
+    res = run_recipe(recipe, tmp_path / "out")
+    half, _, _ = _read(res.outputs["t_mean"])
+    ground = run_recipe(write_recipe(tmp_path, files, outputs=["t_mean"]), tmp_path / "g")
+    full, _, _ = _read(ground.outputs["t_mean"])
+    np.testing.assert_allclose(half, 0.5 * full, rtol=1e-5, atol=1e-5)  # n_f = n_t = 0.5
+    with rasterio.open(res.outputs["t_mean"]) as ds:
+        assert "n-factors" in ds.tags()["surface"]
+
+
 def test_analytic_shortcut_matches_solver_for_warm_cells():
     # Never-freezing cells take the periodic analytic solution (Carslaw & Jaeger 1959
     # Sec. 2.6) plus the geothermal gradient q z / k; the numerical run of the same cells

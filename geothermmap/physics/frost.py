@@ -31,7 +31,9 @@ from collections.abc import Sequence
 import numpy as np
 from scipy.special import erf, erfc
 
+from geothermmap.physics import freezethaw
 from geothermmap.physics.freezethaw import LATENT_HEAT_FUSION_J_KG, WATER_DENSITY_KG_M3
+from geothermmap.physics.harmonics import HarmonicFit
 
 __all__ = [
     "N_FACTORS",
@@ -41,6 +43,7 @@ __all__ = [
     "frost_class",
     "frost_class_legend",
     "berggren_frost_depth",
+    "ground_surface_harmonics",
     "latent_heat_volumetric",
     "neumann_front_coefficient",
     "stefan_frost_depth",
@@ -97,6 +100,63 @@ def surface_temperature_n_factor(
     """
     ta = np.asarray(air_temperature_degC, dtype=np.float64)
     return np.where(ta < 0.0, np.asarray(n_factor_freezing) * ta, np.asarray(n_factor_thawing) * ta)
+
+
+def ground_surface_harmonics(
+    air_fit: HarmonicFit,
+    n_factor_freezing: np.ndarray | float = 0.7,
+    n_factor_thawing: np.ndarray | float = 1.4,
+    n_days: int = 365,
+    cells_per_pass: int = 16384,
+) -> HarmonicFit:
+    """Harmonic fit of the ground-surface cycle implied by an air-temperature fit.
+
+    The periodic analytic solution needs the cycle at the ground surface. The daily air
+    cycle of ``air_fit`` (one period, ``n_days`` samples at step midpoints, as in
+    :func:`freezethaw.daily_forcing_from_harmonics`) is turned into ground-surface
+    temperature with :func:`surface_temperature_n_factor` and refitted with as many
+    harmonics as ``air_fit`` has (least squares on equally spaced samples of one period:
+    the discrete Fourier coefficients). The mean is the mean of the daily ground-surface
+    values, so ``mean = (n_t I_t - n_f I_f) / P`` with the air thawing and freezing
+    indices I_t, I_f over one period P. The kink at 0 degC moves a little of the cycle
+    into higher harmonics, which the refit leaves out, as a fit of the same order to
+    measured ground-surface temperatures would. Cells are done in passes of
+    ``cells_per_pass`` to bound memory (n_days x cells float64 per pass).
+
+    Parameters
+    ----------
+    air_fit : Harmonic fit of the air-temperature cycle, cells ``(n,)``. [degC, K]
+    n_factor_freezing : Freezing n-factor, ``(n,)`` or scalar. [1]
+    n_factor_thawing : Thawing n-factor, ``(n,)`` or scalar. [1]
+    n_days : Samples per year. [1]
+    cells_per_pass : Cells per pass. [1]
+
+    Returns
+    -------
+    HarmonicFit of the ground-surface temperature, same shapes as ``air_fit``.
+
+    References
+    ----------
+    Lunardini, V. J. (1978). Theory of n-factors and correlation of data. Proc. 3rd
+        Int. Conf. on Permafrost, Edmonton, 40-46.
+    """
+    mean = np.asarray(air_fit.mean, dtype=np.float64)
+    cos_c = np.asarray(air_fit.cos_coef, dtype=np.float64)
+    sin_c = np.asarray(air_fit.sin_coef, dtype=np.float64)
+    n = mean.shape[0]
+    n_f = np.broadcast_to(np.asarray(n_factor_freezing, dtype=np.float64), (n,))
+    n_t = np.broadcast_to(np.asarray(n_factor_thawing, dtype=np.float64), (n,))
+    out_mean = np.empty(n)
+    out_cos = np.empty_like(cos_c)
+    out_sin = np.empty_like(sin_c)
+    for i0 in range(0, n, cells_per_pass):
+        sl = slice(i0, min(n, i0 + cells_per_pass))
+        air = freezethaw.daily_forcing_from_harmonics(mean[sl], cos_c[:, sl], sin_c[:, sl],
+                                                      n_days)
+        ground = surface_temperature_n_factor(air, n_f[sl], n_t[sl])
+        out_mean[sl], out_cos[:, sl], out_sin[:, sl] = freezethaw._fit_harmonics(
+            ground, cos_c.shape[0])
+    return HarmonicFit(out_mean, out_cos, out_sin)
 
 
 def latent_heat_volumetric(water_m3m3: np.ndarray | float) -> np.ndarray:
