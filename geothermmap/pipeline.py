@@ -397,6 +397,8 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
                              "nodata_cells": result.nodata_cells}
     for name, arr in result.outputs.items():
         stats["outputs"][name] = [_partial_stats(arr[i]) for i in range(arr.shape[0])]
+    if CANCELLED.is_set():  # interrupted while computing: the work folder is going away
+        return None
     stats_tmp = stats_path.with_name(stats_path.name + f".{os.getpid()}{PARTIAL_SUFFIX}")
     Path(task.path).parent.mkdir(parents=True, exist_ok=True)
     stats_tmp.write_text(json.dumps(stats))
@@ -567,8 +569,8 @@ def _check_output_dir(out: Path, overwrite: bool) -> dict | None:
     if not out.is_dir():
         raise UserError(f"output path {out} exists and is not a folder")
     ours = set(TOOL_FILES)
-    if previous:
-        ours |= set(previous.get("files", []))
+    if previous:  # complete maps, and maps an interrupted run was writing
+        ours |= set(previous.get("files", [])) | set(previous.get("pending_files", []))
     foreign = sorted(p.name for p in out.iterdir()
                      if p.name not in ours and not _is_partial(p.name))
     if foreign and not overwrite:
@@ -619,14 +621,16 @@ def run_recipe(
     run_key = record.run_key(plan, checksums)
     timings = {"plan_s": t_hash - t0, "checksums_s": time.perf_counter() - t_hash}
 
-    done: dict[str, dict] = {}
+    done: dict[str, dict] = {}  # complete maps of an earlier run of the same recipe and inputs
     if resume and previous and previous.get("run_key_base") == run_key["base"]:
         for name, entry in previous.get("outputs", {}).items():
-            if name in plan.outputs and (out / entry["file"]).exists():
-                done[name] = entry
-    elif previous:  # a fresh run replaces the earlier run's outputs
-        for fname in previous.get("files", []):
-            (out / fname).unlink(missing_ok=True)
+            if name in OUTPUTS and _intact(out / entry["file"], entry.get("sha256")):
+                done[name] = entry  # kept (also when this run asks for fewer outputs)
+    if previous:  # a fresh run replaces the earlier run's outputs
+        kept = {e["file"] for e in done.values()}
+        for fname in set(previous.get("files", [])) | set(previous.get("pending_files", [])):
+            if fname not in kept:
+                (out / fname).unlink(missing_ok=True)
 
     work = out / WORK_DIR_NAME / run_key["full"]
     if (out / WORK_DIR_NAME).exists():  # blocks of another recipe or input are stale
@@ -669,6 +673,10 @@ def run_recipe(
             rec["counts"]["uncovered_input_fraction"] = {
                 k: round(1.0 - v, 6) for k, v in plan.coverage.items() if v < 0.999}
             t2 = time.perf_counter()
+            # maps are renamed into place before the record lists them: name them first,
+            # so that a rerun after an interrupt knows them as this tool's files
+            rec["pending_files"] = sorted(OUTPUTS[n].filename for n in todo)
+            record.write(out / RECORD_NAME, rec)
             if progress:
                 progress("maps", 0, len(todo))
             # two outputs at a time: a byte copy of tiles the tasks compressed, bound by
@@ -684,7 +692,10 @@ def run_recipe(
                         progress("maps", i, len(todo))
             finally:  # an interrupt waits for running copies, so cleanup sees them all
                 pool.shutdown(wait=True, cancel_futures=True)
-            rec["outputs"] = {n: rec["outputs"][n] for n in plan.outputs if n in rec["outputs"]}
+            rec.pop("pending_files", None)
+            order = [n for n in plan.outputs if n in rec["outputs"]]
+            order += [n for n in rec["outputs"] if n not in order]  # kept from a resume
+            rec["outputs"] = {n: rec["outputs"][n] for n in order}
             if progress:
                 progress("maps", len(todo), len(todo))
             timings["write_s"] = time.perf_counter() - t2
@@ -696,7 +707,7 @@ def run_recipe(
         # an interrupt leaves no temporary files: partial maps and block files go;
         # maps already complete stay and are listed in the run record
         _remove_partials(out)
-        shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
+        _remove_work_dir(out)
         raise
     except BaseException:
         _remove_partials(out)  # block files stay: --resume reuses them
@@ -706,6 +717,21 @@ def run_recipe(
     shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
     paths = {n: out / OUTPUTS[n].filename for n in plan.outputs}
     return RunResult(out, paths, out / RECORD_NAME, rec)
+
+
+def _remove_work_dir(out: Path) -> None:
+    """Remove the block files; again after a pause if a task still finishing (e.g. on a
+    cluster worker) wrote one while the folder was being removed."""
+    for pause in (0.0, 0.5, 2.0):
+        time.sleep(pause)
+        shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
+        if not (out / WORK_DIR_NAME).exists():
+            return
+
+
+def _intact(path: Path, sha256: str | None) -> bool:
+    """Whether a map an earlier run completed is still the file it recorded."""
+    return path.is_file() and (sha256 is None or record.sha256_file(path) == sha256)
 
 
 def _record_output(plan: RunPlan, rec: dict, name: str, path: Path, summary: dict,

@@ -139,6 +139,55 @@ def test_changed_recipe_invalidates_resume(tmp_path):
     assert changed.record["recipe"]["harmonics"] == 1
 
 
+def test_interrupt_while_maps_are_written_then_rerun(tmp_path, monkeypatch):
+    # An interrupt between a map's rename into place and its entry in the run record
+    # must not make the folder look foreign: the rerun, with or without --resume, works
+    # and gives the same maps as an uninterrupted run.
+    from geothermmap import pipeline
+
+    files = make_case(tmp_path, width=64, height=48)
+    recipe = write_recipe(tmp_path, files)
+    clean = run_recipe(recipe, tmp_path / "clean")
+    real = pipeline._record_output
+
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    for resume in (True, False):
+        out = tmp_path / f"out{resume}"
+        monkeypatch.setattr(pipeline, "_record_output", interrupted)
+        with pytest.raises(KeyboardInterrupt):
+            run_recipe(recipe, out)
+        assert list(out.glob("*.tif"))  # maps on disk that the record does not list
+        monkeypatch.setattr(pipeline, "_record_output", real)
+        again = run_recipe(recipe, out, resume=resume)
+        for name, entry in clean.record["outputs"].items():
+            assert again.record["outputs"][name]["sha256"] == entry["sha256"], name
+        assert "pending_files" not in again.record
+
+
+def test_resume_with_fewer_outputs_keeps_the_earlier_maps(tmp_path):
+    files = make_case(tmp_path, width=64, height=48)
+    out = tmp_path / "out"
+    first = run_recipe(write_recipe(tmp_path, files), out)
+    fewer = run_recipe(write_recipe(tmp_path, files, outputs=["t_min"]), out, resume=True)
+    assert set(fewer.record["outputs"]) == set(first.record["outputs"])  # still valid, listed
+    run_recipe(write_recipe(tmp_path, files, outputs=["t_min"]), out)  # no foreign files
+    assert sorted(p.name for p in out.glob("*.tif")) == ["t_min.tif"]
+
+
+def test_resume_recomputes_a_damaged_map(tmp_path):
+    files = make_case(tmp_path, width=64, height=48)
+    recipe = write_recipe(tmp_path, files)
+    out = tmp_path / "out"
+    first = run_recipe(recipe, out)
+    path = first.outputs["t_min"]
+    path.write_bytes(path.read_bytes()[:1000])
+    again = run_recipe(recipe, out, resume=True)
+    assert again.record["outputs"]["t_min"]["sha256"] == first.record["outputs"]["t_min"][
+        "sha256"]
+
+
 # ----------------------------------------------------------------------------- bad input
 
 
