@@ -52,6 +52,10 @@ def check_units(layer: InputLayer, declared_units: str, where: str) -> list[str]
         if declared_units in {"percent", "%"} and 0 < hi <= 1.0 / 100.0 + 1e-9:
             raise InputError(f"input '{name}' ({where}): values 0..{hi * 100:.3g} look like "
                              "fractions (0..1) but units are declared percent; set units: '1'")
+        if declared_units in {"percent", "%"} and hi > 1.5:
+            raise InputError(f"input '{name}' ({where}): values up to {hi * 100:.4g} % exceed "
+                             "100 %; if they are g kg-1 (0..1000, as many soil grids store "
+                             "texture), set units: 'g kg-1'")
         if declared_units == "1" and hi > 1.5:
             raise InputError(f"input '{name}' ({where}): values up to {hi:.3g} look like "
                              "percent but units are declared '1' (fraction); set units: percent")

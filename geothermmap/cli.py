@@ -33,7 +33,25 @@ __all__ = ["main", "handle_errors", "EXIT_USER_ERROR", "EXIT_INTERNAL_ERROR",
            "EXIT_INTERRUPTED"]
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+class _Group(click.Group):
+    """Usage errors (a missing option, a bad value) exit 1 like every other user error
+    (click's default is 2, which this tool keeps for internal errors)."""
+
+    def main(self, *args: Any, standalone_mode: bool = True, **kwargs: Any) -> Any:
+        if not standalone_mode:
+            return super().main(*args, standalone_mode=False, **kwargs)
+        try:
+            rv = super().main(*args, standalone_mode=False, **kwargs)
+        except click.ClickException as err:
+            err.show()
+            sys.exit(EXIT_USER_ERROR)
+        except click.exceptions.Abort:
+            _err("Aborted.")
+            sys.exit(EXIT_USER_ERROR)
+        sys.exit(rv if isinstance(rv, int) else 0)
+
+
+@click.group(cls=_Group, context_settings={"help_option_names": ["-h", "--help"]})
 @click.option("--debug", is_flag=True, help="Show full tracebacks.")
 @click.version_option(package_name="geothermmap")
 def main(debug: bool) -> None:  # noqa: D401

@@ -80,7 +80,9 @@ TOOL_FILES = (RECORD_NAME, WORK_DIR_NAME, "quicklook", "report.html", "summary.g
 DEFAULT_CHUNK = 512
 
 #: Expected band counts per input (negative = any multiple of that number).
-EXPECTED_BANDS = {"surface_temperature": (-12,), "water_content": (1, 12)}
+EXPECTED_BANDS = {"surface_temperature": (-12,), "water_content": (1, 12), "sand": (1,),
+                  "clay": (1,), "bulk_density": (1,), "organic_matter": (1,), "quartz": (1,),
+                  "n_factor_freezing": (1,), "n_factor_thawing": (1,)}
 
 
 @dataclass(frozen=True)
@@ -533,8 +535,9 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
             cluster = LocalCluster(n_workers=int(workers or 1), threads_per_worker=1,
                                    processes=True, host="127.0.0.1", dashboard_address=None)
             client = Client(cluster)
-    except OSError as err:
-        raise UserError(f"cannot reach the dask scheduler {scheduler!r}: {err}") from None
+    except (OSError, ValueError, TypeError) as err:  # unreachable, or not an address
+        raise UserError(f"cannot reach the dask scheduler {scheduler!r}: {err}; give an "
+                        "address like tcp://HOST:PORT") from None
     futures: list = []
     try:
         futures = client.map(run_block, [ctx] * len(tasks), tasks, pure=False)
@@ -613,7 +616,11 @@ def run_recipe(
     plan = plan_run(recipe)
     out = Path(output_dir).resolve()
     previous = _check_output_dir(out, overwrite)
-    out.mkdir(parents=True, exist_ok=True)
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as err:
+        raise UserError(f"cannot create the output folder {out}: {err.strerror or err}; "
+                        "choose another folder with -o") from None
     _remove_partials(out)
 
     t_hash = time.perf_counter()

@@ -11,6 +11,7 @@ from __future__ import annotations
 import difflib
 import hashlib
 import json
+import math
 from pathlib import Path
 from typing import Annotated, Any, Literal
 
@@ -39,7 +40,8 @@ UNIT_CONVERSIONS: dict[str, dict[str, tuple[float, float]]] = {
         "kelvin": (1.0, -273.15),
     },
     # canonical fraction [1]
-    "fraction": {"percent": (0.01, 0.0), "%": (0.01, 0.0), "1": (1.0, 0.0)},
+    "fraction": {"percent": (0.01, 0.0), "%": (0.01, 0.0), "1": (1.0, 0.0),
+                 "g kg-1": (0.001, 0.0), "g/kg": (0.001, 0.0)},
     # canonical m3 m-3
     "water_content": {
         "m3 m-3": (1.0, 0.0),
@@ -97,6 +99,8 @@ class InputSpec(_Strict):
     def _path_or_value(self) -> InputSpec:
         if (self.path is None) == (self.value is None):
             raise ValueError("give exactly one of 'path' or 'value'")
+        if self.value is not None and not math.isfinite(self.value):
+            raise ValueError("'value' must be a finite number")
         if isinstance(self.path, list) and not self.path:
             raise ValueError("'path' list is empty")
         for p in [self.path] if isinstance(self.path, str) else self.path or []:
@@ -139,6 +143,21 @@ class FreezeThawSpec(_Strict):
     freezing_range: tuple[float, float] = (-1.0, 0.0)
     bottom_heat_flux: float = 0.06  # W m-2; a typical continental value, common practice
     years: Literal["auto"] | int = "auto"
+
+    @field_validator("years")
+    @classmethod
+    def _years(cls, v: str | int) -> str | int:
+        if isinstance(v, int) and not 0 <= v <= 1000:
+            raise ValueError("years must be 'auto' or a number of spin-up years >= 0")
+        return v
+
+    @field_validator("bottom_heat_flux")
+    @classmethod
+    def _flux(cls, v: float) -> float:
+        if not -1.0 <= v <= 1.0:  # NaN fails too; continental values are 0.03..0.12
+            raise ValueError("bottom_heat_flux is a geothermal heat flux in W m-2 "
+                             "(typically 0.03..0.12; at most 1 in magnitude)")
+        return v
 
     @field_validator("freezing_range")
     @classmethod
@@ -190,6 +209,20 @@ class ThresholdSpec(_Strict):
     values: list[float] = Field(default_factory=lambda: [5.0, 10.0], min_length=1)
     degree_day_base: float = 5.0
 
+    @field_validator("values")
+    @classmethod
+    def _values(cls, v: list[float]) -> list[float]:
+        if not all(math.isfinite(t) for t in v) or len(set(v)) != len(v):
+            raise ValueError("threshold values must be finite and must not repeat (degC)")
+        return v
+
+    @field_validator("degree_day_base")
+    @classmethod
+    def _base(cls, v: float) -> float:
+        if not math.isfinite(v):
+            raise ValueError("degree_day_base must be a finite temperature (degC)")
+        return v
+
 
 class Recipe(_Strict):
     """A validated recipe. Field names are the YAML keys."""
@@ -237,10 +270,19 @@ class Recipe(_Strict):
     def _depths(cls, v: list[float]) -> list[float]:
         if not v:
             raise ValueError("give at least one depth (metres, positive downward)")
+        if not all(math.isfinite(d) for d in v):
+            raise ValueError("depths must be finite numbers of metres")
         if any(d <= 0 for d in v):
             raise ValueError("depths must be > 0 m (positive downward; the surface is 0)")
         if len(set(v)) != len(v):
             raise ValueError("depths must not repeat")
+        return v
+
+    @field_validator("outputs")
+    @classmethod
+    def _outputs(cls, v: list[str]) -> list[str]:
+        if not v:
+            raise ValueError("give at least one output name, or [all]")
         return v
 
     @field_validator("harmonics")
@@ -263,6 +305,8 @@ class Recipe(_Strict):
     @field_validator("frost_classes")
     @classmethod
     def _classes(cls, v: list[float]) -> list[float]:
+        if not v or not all(math.isfinite(t) for t in v):
+            raise ValueError("frost_classes needs at least one finite burial depth in metres")
         if any(b <= a for a, b in zip(v, v[1:], strict=False)) or any(t <= 0 for t in v):
             raise ValueError("frost_classes must be increasing positive depths in metres")
         return v

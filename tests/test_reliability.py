@@ -218,6 +218,32 @@ def test_texture_fraction_declared_percent(tmp_path):
     _assert_error(_check(write_recipe(tmp_path, files)), "look like fractions", "units: '1'")
 
 
+def test_texture_in_g_per_kg(tmp_path):
+    # SoilGrids-style texture in g/kg declared as percent used to be clipped to 100 %
+    files = make_case(tmp_path, width=40, height=30)
+    with rasterio.open(files["sand"]) as ds:
+        sand, crs, tr = ds.read(1), ds.crs, ds.transform
+    files["sand"] = write_tif(tmp_path / "sgkg.tif", sand * 10.0, crs, tr)
+    _assert_error(_check(write_recipe(tmp_path, files)), "g kg-1")
+    recipe = yaml.safe_load(write_recipe(tmp_path, files, outputs=["conductivity"]).read_text())
+    recipe["inputs"]["sand"]["units"] = "g kg-1"
+    (tmp_path / "gkg.yaml").write_text(yaml.safe_dump(recipe))
+    gkg = run_recipe(tmp_path / "gkg.yaml", tmp_path / "o1")
+    files["sand"] = write_tif(tmp_path / "spc.tif", sand, crs, tr)
+    pct = run_recipe(write_recipe(tmp_path, files, outputs=["conductivity"]), tmp_path / "o2")
+    with rasterio.open(gkg.outputs["conductivity"]) as a, \
+            rasterio.open(pct.outputs["conductivity"]) as b:
+        np.testing.assert_allclose(a.read(), b.read(), rtol=1e-6)
+
+
+def test_multi_band_soil_raster_is_refused(tmp_path):
+    files = make_case(tmp_path, width=40, height=30)
+    with rasterio.open(files["clay"]) as ds:
+        clay, crs, tr = ds.read(1), ds.crs, ds.transform
+    files["clay"] = write_tif(tmp_path / "c2.tif", np.stack([clay, clay]), crs, tr)
+    _assert_error(_check(write_recipe(tmp_path, files)), "clay", "band: N")
+
+
 def test_texture_percent_declared_fraction(tmp_path):
     files = make_case(tmp_path)
     recipe = write_recipe(tmp_path, files)
@@ -320,6 +346,22 @@ def test_wrong_type_in_recipe(tmp_path):
     files = make_case(tmp_path)
     _assert_error(_check(write_recipe(tmp_path, files, depths="deep")), "depths")
     _assert_error(_check(write_recipe(tmp_path, files, chunk="big")), "chunk")
+
+
+@pytest.mark.parametrize("overrides, key", [
+    ({"depths": [float("nan"), 1.0]}, "depths"),
+    ({"depths": [float("inf")]}, "depths"),
+    ({"outputs": []}, "outputs"),
+    ({"frost_classes": []}, "frost_classes"),
+    ({"freeze_thaw": {"enabled": True, "years": -3}}, "years"),
+    ({"freeze_thaw": {"enabled": True, "bottom_heat_flux": float("nan")}}, "bottom_heat_flux"),
+    ({"surface": {"kind": "air", "n_factor_freezing": -0.5}}, "n_factor_freezing"),
+    ({"thresholds": {"values": [5.0, 5.0]}}, "thresholds"),
+])
+def test_impossible_values_are_refused_by_check(tmp_path, overrides, key):
+    # each of these used to pass `check` and then fail or give empty maps in `run`
+    files = make_case(tmp_path, width=40, height=30)
+    _assert_error(_check(write_recipe(tmp_path, files, **overrides)), key)
 
 
 def test_recipe_cannot_write_outside_output_folder(tmp_path):

@@ -241,7 +241,9 @@ def open_layer(
     if expected_bands is not None and not _band_count_ok(n_bands, expected_bands):
         what = " or ".join(_describe_counts(expected_bands))
         raise InputError(f"input '{name}': expected {what} band(s) in total, found {n_bands} "
-                         f"in {', '.join(str(p) for p in paths)}")
+                         f"in {', '.join(str(p) for p in paths)}"
+                         + ("; choose one with 'band: N' in the input's spec"
+                            if expected_bands == (1,) else ""))
     return InputLayer(name, n_bands, scale, offset, sources=tuple(sources))
 
 
