@@ -12,11 +12,14 @@ Conventions (also written into the output tags):
 * Forcing: a 12-band climatology is forced with the daily series reconstructed from
   its harmonic fit (one periodic year of 365 steps of 365.25/365 d); a 12 x Y series
   with :func:`freezethaw.daily_forcing_from_monthly` (365-day years, 1-d steps).
-* Winters: for a multi-year input, cells whose coldest climatological month is
-  October..March (northern-hemisphere winter) use freezing seasons from July 1st to
-  June 30th; the first season's July..December is the first year's (which is also
-  what the spin-up, repeating the first season, sees), and the last year's
-  July..December is left out. Other cells use calendar years. One band per season.
+* Winters: for a multi-year input of Y years, cells whose coldest climatological month
+  is October..March (northern-hemisphere winter) use freezing seasons from July 1st to
+  June 30th, other cells calendar years. One band per season: band k is the winter
+  whose middle falls in year k of the record. For northern cells band 1 is NaN in
+  ``freezing_index`` and ``frost_depth_winters`` (the record starts in mid-winter: that
+  season is incomplete) and the last year's July..December is left out, so they have
+  Y - 1 winters; the solver still runs year 1's July..December before year 1 (the
+  season the spin-up repeats). The design winter uses the complete winters only.
 * ``freezing_index``: degree-days below 0 degC of the ground surface per winter.
 * ``frost_depth_latent``: maximum frost depth of the numerical run over the record.
 * ``design_freezing_index``: mean of the 3 coldest winters; ``design_frost_depth``:
@@ -94,10 +97,15 @@ def _daily_forcing(state: CellState, kind: str) -> tuple[np.ndarray, float]:
     return daily, dt
 
 
+def _northern_winter(monthly: np.ndarray) -> np.ndarray:
+    """Cells whose coldest climatological month is October..March."""
+    coldest = np.argmin(monthly, axis=0)
+    return (coldest >= 9) | (coldest <= 2)
+
+
 def _season_shift(daily: np.ndarray, monthly: np.ndarray) -> np.ndarray:
     """Start northern-winter cells on July 1st (see the module docstring)."""
-    coldest = np.argmin(monthly, axis=0)
-    north = (coldest >= 9) | (coldest <= 2)
+    north = _northern_winter(monthly)
     shifted = np.concatenate([daily[_JULY_1:365], daily[: daily.shape[0] - (365 - _JULY_1)]])
     return np.where(north[None, :], shifted, daily)
 
@@ -137,6 +145,11 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
     if n_years > 1:
         daily = _season_shift(daily, state.monthly)
     fi, fdays = frost.freezing_index_per_winter(daily, 365, dt)  # (W, n)
+    first_is_whole = np.ones(n, dtype=bool)
+    if n_years > 1:  # a northern winter 1 would join the record's first Jul-Dec to its Jan-Jun
+        first_is_whole = ~_northern_winter(state.monthly)
+        fi[0, ~first_is_whole] = np.nan
+        fdays[0, ~first_is_whole] = np.nan
 
     d1 = np.asarray(state.damping_depth_m, dtype=np.float64)
     grid = solver_grid(cfg.depths_m)
@@ -167,6 +180,7 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
             spinup_tolerance_K=s["tol"], max_spinup_years=s["max_spin"])
         frost_max[run] = r.frost_depth_m
         frost_y[:, run] = r.frost_depth_per_year_m
+        frost_y[0, ~first_is_whole] = np.nan
         thaw[run] = r.thaw_depth_m
         peren[run] = r.perennially_frozen
         frozen_days[:, run] = r.frozen_days
@@ -183,7 +197,7 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
     frost_max[bad] = np.nan
 
     design_fi, used = frost.design_freezing_index(fi, _N_COLDEST)
-    k_used = used.sum(axis=0)
+    k_used = np.maximum(used.sum(axis=0), 1)
     design_days = np.sum(np.where(used, fdays, 0.0), axis=0) / k_used
     design_depth = np.sum(np.where(used, frost_y, 0.0), axis=0) / k_used
     design_depth[bad] = np.nan
@@ -227,15 +241,16 @@ def tags(config: KernelConfig) -> dict[str, dict[str, str]]:
            f"flux {s['q']:g} W m-2, spin-up from the periodic solution")
     surface = ("ground surface temperature from air temperature with n-factors"
                if s["kind"] == "air" else "ground surface temperature as given")
-    winters = ("freezing seasons July-June where the coldest month is October-March, else "
-               "calendar years")
+    winters = ("freezing seasons July-June where the coldest month is October-March (band 1 "
+               "nodata there: the record starts mid-winter), else calendar years; band k is "
+               "the winter whose middle falls in year k")
     return {
         "frost_class": cls,
         "frost_depth_latent": {"method": num + "; maximum over the record", "surface": surface,
                                "perennially_frozen_cells": "base of the frozen ground, or the "
                                "solver grid bottom when deeper; see thaw_depth there"},
         "thaw_depth": {"method": num},
-        "frozen_days": {"method": num + "; mean days per year below the upper freezing bound"},
+        "frozen_days": {"method": num + "; mean days per year below 0 degC"},
         "t_min_latent": {"method": num},
         "t_max_latent": {"method": num},
         "freezing_index": {"method": "degree-days below 0 degC of the ground surface per "

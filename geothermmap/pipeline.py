@@ -772,7 +772,8 @@ def band_descriptions(plan: RunPlan, name: str) -> list[tuple[str, dict[str, str
         return [(f"threshold {v:g} degC", {"threshold_degC": f"{v:g}"}) for v in vals]
     if info.per_year:
         n = int(plan.config.extras.get("n_years", 1))
-        return [(f"winter {i + 1}", {"winter": str(i + 1)}) for i in range(n)]
+        return [(f"winter {i + 1} (its middle in year {i + 1} of the record)",
+                 {"winter": str(i + 1)}) for i in range(n)]
     return [(info.description.split(".")[0][:80], {})]
 
 

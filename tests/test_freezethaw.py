@@ -105,6 +105,10 @@ def test_frozen_days_match_analytic_without_latent_heat():
     exact = 365.25 * np.arccos(mean / a_z) / np.pi
     # 2 days: daily sampling (1 d) plus the 2 % amplitude error of the scheme
     np.testing.assert_allclose(res.frozen_days[:, 0], exact, atol=2.0)
+    # frozen days count days below 0 degC (the output's contract), whatever the range
+    shifted = ft.solve_freeze_thaw(ts, k, k, c, c, 0.0, depths, dt_days=DT_YEAR,
+                                   freezing_range_degC=(-2.0, -0.5))
+    np.testing.assert_allclose(shifted.frozen_days[:, 0], exact, atol=2.0)
     # frost depth: where the minimum envelope m - A_z reaches 0 -> z = d ln(A/m)
     assert res.frost_depth_m[0] == pytest.approx(d1 * np.log(amp / mean), rel=0.03)
     assert res.spinup_converged[0]

@@ -114,13 +114,20 @@ def test_multi_year_design_outputs(tmp_path):
     winters, _, _ = _read(res.output_dir / "frost_depth_winters.tif")
     design, _, _ = _read(res.output_dir / "design_frost_depth.tif")
     assert fi.shape[0] == 3 and winters.shape[0] == 3
-    # 3 winters: the design index is the mean of all three (U.S. Army practice: mean of
-    # the 3 coldest winters), float32 storage
-    np.testing.assert_allclose(dfi[0], fi.mean(axis=0), rtol=1e-5, atol=1e-3)
-    np.testing.assert_allclose(design[0], winters.mean(axis=0), rtol=1e-5, atol=1e-5)
-    # the colder winter (band 2) freezes more than the mild one (band 1)
-    cold = fi[1] > 0
-    assert np.all(fi[1][cold] >= fi[0][cold]) and np.all(winters[1] >= winters[0] - 1e-6)
+    # the invented region has northern winters (coldest month January): band 1 would be
+    # the record's first Jan-Jun joined to its first Jul-Dec, not a winter -> nodata
+    assert fi[0].mask.all() and winters[0].mask.all()
+    # bands 2 and 3: degree-days below 0 degC from July 1st (day 181 of a 365-day year)
+    # to June 30th of the next year, summed by hand from the daily forcing
+    daily = freezethaw.daily_forcing_from_monthly(t36.reshape(36, -1).astype(np.float64))
+    for band in (1, 2):
+        window = daily[181 + 365 * (band - 1): 181 + 365 * band]
+        by_hand = np.maximum(-window, 0.0).sum(axis=0).reshape(fi.shape[1:])
+        np.testing.assert_allclose(fi[band], by_hand, rtol=1e-5, atol=1e-3)
+    # the design index is the mean of the (up to) 3 coldest complete winters (U.S. Army
+    # practice), here both complete ones; float32 storage
+    np.testing.assert_allclose(dfi[0], fi[1:].mean(axis=0), rtol=1e-5, atol=1e-3)
+    np.testing.assert_allclose(design[0], winters[1:].mean(axis=0), rtol=1e-5, atol=1e-5)
 
 
 def _block_inputs(n_months: int = 12, air: bool = False) -> dict[str, np.ndarray]:

@@ -41,8 +41,9 @@ Conventions
   curved (e.g. a power law of the freezing-point depression); the linear
   curve is a documented simplification.
 * "Frozen" means ``T < T_f2`` (ice present: below the upper bound of the
-  freezing range, 0 degC by default). Frost depth, frozen days and the
-  perennially frozen test all use this threshold.
+  freezing range, 0 degC by default). Frost depth and the perennially frozen
+  test use this threshold; frozen days count the days below 0 degC (the same
+  for the default range; more days when ``T_f2 < 0``).
 * Cells are on the trailing axes (flattened or not); time and depth on axis 0.
 
 The outputs are screening estimates: design frost depths follow local codes and
@@ -824,7 +825,7 @@ def _freeze_thaw_kernel(
             ww = out_w[j]
             for s in range(nb):
                 tz = T[ii, s] + ww * (T[ii + 1, s] - T[ii, s])
-                fdays[j, s] += dt_days if tz < t_hi else 0.0
+                fdays[j, s] += dt_days if tz < 0.0 else 0.0  # days below 0 degC
                 tmin_c[j, s] = min(tmin_c[j, s], tz)
                 tmax_c[j, s] = max(tmax_c[j, s], tz)
                 if record and active[s]:
@@ -968,7 +969,7 @@ class FreezeThawResult(NamedTuple):
         for cells with no node frozen all through the record. [m]
     perennially_frozen : True where some node stays frozen (``T < T_f2``) all
         through the record. [bool]
-    frozen_days : Days per year each output depth is frozen (mean over the
+    frozen_days : Days per year each output depth is below 0 degC (mean over the
         years of the record). [d]
     t_min_degC : Minimum temperature at each output depth over the record. [degC]
     t_max_degC : Maximum temperature at each output depth over the record. [degC]

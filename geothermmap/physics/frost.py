@@ -222,14 +222,17 @@ def design_freezing_index(
     Returns
     -------
     (design index ``cells`` [degC d], boolean mask ``(W, *cells)`` of the winters
-    used, ties broken by record order).
+    used, ties broken by record order). NaN winters (incomplete) are left out; a cell
+    with no finite winter gets NaN.
     """
     fi = np.asarray(freezing_index_degC_day, dtype=np.float64)
     k = min(n_coldest, fi.shape[0])
-    order = np.argsort(-fi, axis=0, kind="stable")
+    order = np.argsort(-fi, axis=0, kind="stable")  # NaN (incomplete winters) sort last
     used = np.zeros(fi.shape, dtype=bool)
     np.put_along_axis(used, order[:k], True, axis=0)
-    return np.sum(np.where(used, fi, 0.0), axis=0) / k, used
+    used &= np.isfinite(fi)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.sum(np.where(used, fi, 0.0), axis=0) / used.sum(axis=0), used
 
 
 def stefan_frost_depth(
