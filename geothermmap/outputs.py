@@ -26,6 +26,8 @@ class OutputInfo:
     group: str = "core"  # core | freeze_thaw | multi_year | root_zone | thresholds
     frost: bool = False  # carries the frost caution
     coded: bool = False  # holds code values among its numbers (overviews: nearest)
+    #: code values and their names: not measurements, so summaries count them apart
+    codes: tuple[tuple[float, str], ...] = ()
 
     @property
     def filename(self) -> str:
@@ -33,6 +35,10 @@ class OutputInfo:
 
 
 _O = OutputInfo
+# the code values of periodic.FROST_PERENNIAL and rootzone.NEVER_ABOVE / ALWAYS_ABOVE
+# (tests/test_summarize.py checks that they agree)
+FROST_DEPTH_CODES = ((-1.0, "frozen_at_depth"),)
+CROSSING_CODES = ((-1.0, "never_above"), (-2.0, "always_above"))
 
 OUTPUTS: dict[str, OutputInfo] = {
     o.name: o
@@ -51,7 +57,7 @@ OUTPUTS: dict[str, OutputInfo] = {
         _O("frost_depth", "m", "Conduction-only frost penetration depth of the periodic "
            "solution (no latent heat: overstates frost depth). 0 = the surface minimum stays "
            "above 0 degC; -1 = annual mean at or below 0 degC (frozen at depth, not a depth)",
-           frost=True, coded=True),
+           frost=True, coded=True, codes=FROST_DEPTH_CODES),
         # --- per depth --------------------------------------------------------------------
         _O("t_mean", "degC", "Annual mean temperature", per_depth=True),
         _O("t_min", "degC", "Minimum temperature of the reconstructed annual cycle",
@@ -99,9 +105,11 @@ OUTPUTS: dict[str, OutputInfo] = {
         _O("root_zone_t_max", "degC", "Maximum over the year of the depth-averaged root-zone "
            "temperature", group="root_zone"),
         _O("warming_doy", "day of year", "First day of year the soil warms through each "
-           "threshold", per_threshold=True, group="thresholds", coded=True),
+           "threshold", per_threshold=True, group="thresholds", coded=True,
+           codes=CROSSING_CODES),
         _O("cooling_doy", "day of year", "Last day of year the soil cools through each "
-           "threshold", per_threshold=True, group="thresholds", coded=True),
+           "threshold", per_threshold=True, group="thresholds", coded=True,
+           codes=CROSSING_CODES),
         _O("days_above", "days", "Days per year above each threshold", per_threshold=True,
            group="thresholds"),
         _O("degree_days", "degC day", "Soil degree-days above the base temperature",

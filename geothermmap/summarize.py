@@ -28,13 +28,18 @@ How it is computed (memory bounded by the block size, never by the grid):
   statistics, Hyndman & Fan 1996 type 7) and are exact in practice, in two more passes
   per output: (1) a histogram per zone and band spanning that zone's own [min, max] with
   up to 4096 bins (about one bin per 16 cells for small zones), plus the number of cells
-  equal to the minimum and to the maximum (spikes such as the frost-depth codes);
+  equal to the minimum and to the maximum (spikes such as frost depth 0 = no frost);
   (2) the values in the few bins that hold a requested order statistic are collected and
   sorted, which gives the order statistic exactly. Only if such a bin holds more than
   65,536 cells of different values (or all such bins together more than 8 million cells)
   is the value interpolated by rank between that bin's smallest and largest value: then
   the error is below the bin width, (zone max - zone min) / bins; the summary notes say
   when this happened.
+- **Code values are not measurements**: ``frost_depth`` -1 (frozen at depth) and the
+  ``warming_doy`` / ``cooling_doy`` codes -1 / -2 (never above / above all year) are left
+  out of every statistic (``valid_cells`` counts measured values only) and counted per
+  zone and band in their own columns (``frozen_at_depth_cells``, ``never_above_cells``,
+  ``always_above_cells``).
 - **Geographic grids** (degrees): mean, standard deviation and frost-class shares are
   weighted by cell area (ellipsoidal area of each row of cells, from pyproj); counts are
   cells; percentiles are by cell, unweighted (cell areas within a zone differ by the
@@ -110,6 +115,7 @@ class _Output:
     band_labels: list[str]  # column suffixes, "" for single-band outputs
     band_descriptions: list[str]
     legend: dict[int, str] = field(default_factory=dict)
+    codes: tuple[tuple[float, str], ...] = ()  # code values, left out of the statistics
 
 
 # --------------------------------------------------------------------------- inputs
@@ -151,7 +157,9 @@ def read_run_outputs(output_dir: str | Path, names: list[str] | None = None
                 legend.pop(int(ds.nodata), None)  # e.g. class_0 = nodata
             categorical = ds.dtypes[0] == "uint8" or entry.get("units") == "class"
         units = entry.get("units") or (OUTPUTS[name].units if name in OUTPUTS else "")
-        outputs.append(_Output(name, path, units, categorical, labels, descriptions, legend))
+        codes = OUTPUTS[name].codes if name in OUTPUTS else ()
+        outputs.append(_Output(name, path, units, categorical, labels, descriptions, legend,
+                               codes))
     assert grid is not None
     return grid, outputs, rec
 
@@ -384,11 +392,25 @@ class _Blocks:
             sel = np.flatnonzero(lab)
             yield w, sel, lab[sel].astype(np.int64) - 1, self.row_area[r0 + sel // wd]
 
-    def read(self, ds):
-        """Yield (zone, area, values (bands, n) of the zone cells) per block."""
+    def read(self, ds, codes: tuple[tuple[float, str], ...] = ()):
+        """Yield (zone, area, values (bands, n) of the zone cells) per block; code values
+        (``codes``) become NaN, so that no statistic mixes them with measurements."""
         for w, sel, zone, area in self.zones():
             data = ds.read(window=w)
-            yield zone, area, data.reshape(data.shape[0], -1)[:, sel]
+            values = data.reshape(data.shape[0], -1)[:, sel]
+            for code, _ in codes:
+                values[values == code] = np.nan
+            yield zone, area, values
+
+    def count_codes(self, ds, codes: tuple[tuple[float, str], ...], n_zones: int
+                    ) -> dict[str, np.ndarray]:
+        """Cells per code value, band and zone: {code name: (bands, zones)}."""
+        out = {name: np.zeros((ds.count, n_zones), np.int64) for _, name in codes}
+        for zone, _, values in self.read(ds):
+            for code, name in codes:
+                for b in range(values.shape[0]):
+                    out[name][b] += np.bincount(zone[values[b] == code], minlength=n_zones)
+        return out
 
 
 # --------------------------------------------------------------------------- reductions
@@ -427,7 +449,8 @@ class _Moments:
                 "min": self.mn * nan, "max": self.mx * nan}
 
 
-def _spread(ds, blocks: _Blocks, mom: dict[str, np.ndarray], percentiles: tuple[float, ...]
+def _spread(ds, blocks: _Blocks, mom: dict[str, np.ndarray], percentiles: tuple[float, ...],
+            codes: tuple[tuple[float, str], ...] = ()
             ) -> tuple[np.ndarray, np.ndarray, int, float]:
     """Standard deviation (bands, zones) and exact (in practice) percentiles (P, bands, zones).
 
@@ -460,7 +483,7 @@ def _spread(ds, blocks: _Blocks, mom: dict[str, np.ndarray], percentiles: tuple[
     hist = np.zeros(n_hist, np.int64)
     at_min = np.zeros((n_bands, n_zones), np.int64)
     at_max = np.zeros((n_bands, n_zones), np.int64)
-    for zone, area, values in blocks.read(ds):
+    for zone, area, values in blocks.read(ds, codes):
         for b in range(n_bands):
             v = values[b]
             ok = np.isfinite(v)
@@ -509,7 +532,7 @@ def _spread(ds, blocks: _Blocks, mom: dict[str, np.ndarray], percentiles: tuple[
         keys_c: list[np.ndarray] = []
         vals_c: list[np.ndarray] = []
         # pass 2: the values of the wanted bins
-        for zone, _, values in blocks.read(ds):
+        for zone, _, values in blocks.read(ds, codes):
             for b in range(n_bands):
                 v = values[b]
                 ok = np.isfinite(v)
@@ -632,10 +655,12 @@ def summarize(
                         shares[m.name] = _class_areas(ds, blocks, n_zones)
                         continue
                     acc = _Moments(len(m.band_labels), n_zones)
-                    for zone, area, values in blocks.read(ds):
+                    for zone, area, values in blocks.read(ds, m.codes):
                         acc.add(zone, area, values)
                     st = acc.finish()
-                    st["std"], pct, na, err = _spread(ds, blocks, st, percentiles)
+                    st["std"], pct, na, err = _spread(ds, blocks, st, percentiles, m.codes)
+                    st.update({f"{name}_cells": v for name, v in
+                               blocks.count_codes(ds, m.codes, n_zones).items()})
                     n_approx += na
                     max_err = max(max_err, err)
                     for i, q in enumerate(percentiles):
@@ -724,11 +749,14 @@ def _tables(zone_names, label, maps, stats, shares, zone_cells, zone_area, perce
                                                strict=True)):
             prefix = f"{m.name}_{suffix}" if suffix else m.name
             wide[f"{prefix}_count"] = st["count"][b]
+            coded = {f"{name}_cells": st[f"{name}_cells"][b] for _, name in m.codes}
             for key in order:
                 wide[f"{prefix}_{key}"] = st[key][b]
+            for key, v in coded.items():
+                wide[f"{prefix}_{key}"] = v
             part(m.name, b + 1, desc, m.units,
                  {"valid_cells": st["count"][b], "valid_area_km2": st["area_km2"][b],
-                  **{key: st[key][b] for key in order}})
+                  **{key: st[key][b] for key in order}, **coded})
     return pd.concat(parts, ignore_index=True), wide
 
 

@@ -20,6 +20,7 @@ import geothermmap.summarize as mod
 from geothermmap import run_recipe
 from geothermmap.cli import main
 from geothermmap.errors import UserError
+from geothermmap.outputs import OUTPUTS
 from geothermmap.summarize import summarize
 from tests.conftest import RES, UTM, X0, Y0, make_case, write_recipe
 
@@ -95,6 +96,9 @@ def test_matches_brute_force(run_dir, tmp_path):
                 assert row["zone_cells"] == np.count_nonzero(lab == i + 1)
                 v = data[b][lab == i + 1]
                 v = v[np.isfinite(v)]
+                for code, code_name in OUTPUTS[name].codes:  # codes are counted apart
+                    assert row[f"{code_name}_cells"] == np.count_nonzero(v == code)
+                    v = v[v != code]
                 assert row["valid_cells"] == v.size
                 if v.size == 0:
                     assert np.isnan(row["mean"]) and np.isnan(row["p50"])
@@ -193,10 +197,10 @@ def test_spikes_and_crowded_bins(tmp_path, monkeypatch):
     rng = np.random.default_rng(5)
     v = rng.normal(0.8, 0.3, (60, 80))
     v[:, :30] = 0.0  # a spike at the zone minimum (e.g. frost depth 0 = no frost)
-    v[:10] = -1.0  # and the code -1
+    v[:10] = -1.0  # a spike at the minimum
     v[50:, 60:] = 2.0  # a spike at the maximum
     v[20:30, 40:50] = 0.7  # a spike inside the range
-    out = _fake_run(tmp_path, {"frost_depth": (v, "m")})
+    out = _fake_run(tmp_path, {"t_min": (v, "degC")})
     zones = _one_zone(tmp_path, shapely.box(X0, Y0 - 60 * RES, X0 + 80 * RES, Y0))
     pct = (1, 5, 25, 40, 50, 60, 75, 95, 99.5)
     expected = np.percentile(v.astype(np.float32).astype(np.float64), pct)
@@ -213,6 +217,30 @@ def test_spikes_and_crowded_bins(tmp_path, monkeypatch):
     assert spikes.sum() >= 2
     np.testing.assert_array_equal(got[spikes], expected[spikes])  # exact at the extremes
     assert any("interpolated" in note for note in approx.notes)
+
+
+def test_code_values_are_counted_not_averaged(tmp_path):
+    # frost_depth -1 = frozen at depth (a code, not a depth): left out of mean and
+    # percentiles, counted in frozen_at_depth_cells; 0 (no frost) is a depth and stays
+    v = np.full((20, 30), 0.8)
+    v[:5] = -1.0
+    v[5:10] = 0.0
+    out = _fake_run(tmp_path, {"frost_depth": (v, "m")})
+    zones = _one_zone(tmp_path, shapely.box(X0, Y0 - 20 * RES, X0 + 30 * RES, Y0))
+    row = summarize(out, zones, "name", percentiles=(50,), write=False).table.iloc[0]
+    measured = v[v != -1.0]
+    assert row["frozen_at_depth_cells"] == 150 and row["valid_cells"] == measured.size
+    assert row["min"] == 0.0
+    np.testing.assert_allclose(row["mean"], measured.mean(), rtol=1e-6)
+    np.testing.assert_allclose(row["p50"], np.percentile(measured, 50), rtol=1e-6)
+
+
+def test_output_codes_match_the_physics_constants():
+    from geothermmap.physics import periodic, rootzone
+
+    assert dict(OUTPUTS["frost_depth"].codes) == {periodic.FROST_PERENNIAL: "frozen_at_depth"}
+    assert dict(OUTPUTS["warming_doy"].codes) == {rootzone.NEVER_ABOVE: "never_above",
+                                                   rootzone.ALWAYS_ABOVE: "always_above"}
 
 
 def test_frost_class_shares(tmp_path):
