@@ -135,11 +135,12 @@ def _summarise(result: Any, quiet: bool) -> None:
     rec = result.record
     click.echo(f"wrote {len(result.outputs)} maps to {result.output_dir}")
     for name, path in result.outputs.items():
-        entry = rec["outputs"][name]
-        first = entry["bands"][0]
-        rng = ("no valid cells" if not first["count"] else
-               f"{first['min']:.4g} .. {first['max']:.4g}")
-        click.echo(f"  {path.name:34s} {OUTPUTS[name].units:12s} {rng}")
+        bands = [b for b in rec["outputs"][name]["bands"] if b.get("count")]
+        rng = ("no valid cells" if not bands else
+               f"{min(b['min'] for b in bands):.4g} .. {max(b['max'] for b in bands):.4g}")
+        n_bands = len(rec["outputs"][name]["bands"])
+        scope = f" (all {n_bands} bands)" if n_bands > 1 else ""
+        click.echo(f"  {path.name:34s} {OUTPUTS[name].units:12s} {rng}{scope}")
     counts = rec.get("counts", {})
     click.echo(f"cells: {counts.get('valid_cells', 0)} valid, "
                f"{counts.get('nodata_cells', 0)} nodata")

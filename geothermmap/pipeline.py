@@ -167,9 +167,11 @@ class RunResult:
 
 def _target_grid(recipe: Recipe, first_temperature_path: Path | None) -> TargetGrid:
     if recipe.grid is not None:
-        try:
-            crs = CRS.from_user_input(recipe.grid.crs)
-        except CRSError as err:
+        import pyproj
+
+        try:  # pyproj first: it reports a bad string without GDAL's console message
+            crs = CRS.from_wkt(pyproj.CRS.from_user_input(recipe.grid.crs).to_wkt())
+        except (CRSError, pyproj.exceptions.CRSError) as err:
             raise RecipeError(f"grid.crs: {recipe.grid.crs!r} is not a CRS ({err})") from None
         res = recipe.grid.resolution
         res_xy = (float(res), float(res)) if isinstance(res, int | float) else tuple(res)

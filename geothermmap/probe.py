@@ -190,7 +190,15 @@ def _print_report(res: ProbeResult, x: float, y: float, crs: str) -> None:
             labels = [f"{v:g} degC" for v in plan.config.extras.get("threshold_values", ())]
         else:
             labels = [""] * vals.size
+        if name == "frost_class" and vals.size and math.isfinite(vals[0]):
+            from geothermmap.physics.frost import frost_class_legend
+
+            legend = frost_class_legend(plan.config.extras.get("frost_classes",
+                                                               (0.5, 1.0, 1.5, 2.0)))
+            labels = [legend.get(int(vals[0]), ("",))[0]]
+        codes = dict(info.codes)
         shown = ", ".join(f"{_fmt(v)}" + (f" ({lab})" if lab else "")
+                          + (f" [{codes[v].replace('_', ' ')}]" if v in codes else "")
                           for v, lab in zip(vals, labels, strict=False))
         click.echo(f"  {name:28s} {info.units:12s} {shown}")
         if info.frost and not cautioned:  # once, under the first frost output shown

@@ -382,6 +382,8 @@ def parse_recipe(data: Any, *, base_dir: str | Path = ".", source: str = "recipe
 def load_recipe(path: str | Path) -> Recipe:
     """Read and validate a recipe file (safe YAML loader; paths relative to the file)."""
     path = Path(path)
+    if path.is_dir():
+        raise RecipeError(f"{path} is a folder: give the path of a recipe file (.yaml)")
     if not path.is_file():
         raise RecipeError(f"recipe file not found: {path}")
     try:
