@@ -207,11 +207,13 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
         fields["quartz"] = inputs["quartz"][0]
 
     valid = np.all(np.isfinite(t_surf), axis=0)
-    for v in fields.values():
-        valid &= np.isfinite(v)
-    for key in ("n_factor_freezing", "n_factor_thawing"):
-        if key in inputs:
-            valid &= np.isfinite(inputs[key][0])
+    # cells each input leaves without data (outside its coverage, or its own nodata)
+    missing = {"surface_temperature": valid.size - int(np.count_nonzero(valid))}
+    extra = {k: inputs[k][0] for k in ("n_factor_freezing", "n_factor_thawing") if k in inputs}
+    for key, v in {**fields, **extra}.items():
+        finite = np.isfinite(v)
+        missing[key] = finite.size - int(np.count_nonzero(finite))
+        valid &= finite
     valid_index = np.flatnonzero(valid)
     n_valid = valid_index.size
     every = n_valid == valid.size  # no nodata in the block: views instead of gathers
@@ -225,11 +227,13 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
         for name in config.outputs
     }
     counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
+    counts.update({f"nodata_cells_in_{k}": n for k, n in missing.items() if n})
     if n_valid == 0:
         return KernelResult(outputs, counts, 0, int(valid.size))
 
     cells = {k: take(v).astype(np.float64) for k, v in fields.items()}
     cells, counts, keep = apply_bounds(cells, config.strict, valid_index, shape)
+    counts.update({f"nodata_cells_in_{k}": n for k, n in missing.items() if n})
     monthly_cells = take(monthly).astype(np.float64)
     for key in ("n_factor_freezing", "n_factor_thawing"):
         if key in inputs:

@@ -266,7 +266,8 @@ def plan_run(recipe: Recipe | str | Path) -> RunPlan:
                              f"{grid.crs.to_string()}); check its CRS and extent")
         if cov < 0.999:
             notes.append(f"input '{name}' covers about {cov:.0%} of the output grid; uncovered "
-                         "cells are nodata and counted in the run record")
+                         f"cells are nodata, counted as nodata_cells_in_{name} in the run "
+                         "record")
         layers[name] = layer
 
     if recipe.surface.kind == "air":

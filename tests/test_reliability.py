@@ -324,6 +324,11 @@ def test_partial_coverage_is_nodata_and_counted(tmp_path):
         data = src.read(1)
     assert np.isnan(data[30:40, 50:]).all() and np.isfinite(data[30:40, :40]).all()
     assert result.counts["uncovered_input_fraction"]["clay"] == pytest.approx(0.5, abs=0.01)
+    # and in cells, per input: the map's nodata is the uncovered clay cells plus the
+    # temperature input's 4 x 5 hole (make_case)
+    n_nodata = int(np.count_nonzero(np.isnan(data)))
+    assert result.counts["nodata_cells_in_surface_temperature"] == 20
+    assert n_nodata - 20 <= result.counts["nodata_cells_in_clay"] <= n_nodata
     assert any("covers about 50%" in n for n in result.record["notes"])
 
 
