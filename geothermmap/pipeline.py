@@ -395,7 +395,8 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
         col = int(window.col_off) + err.col
         x, y = ctx.grid.xy(row, col)
         raise CellBoundsError(
-            str(err).replace("{where}", f"row {row}, col {col}, x={x:.3f}, y={y:.3f}"), row, col
+            str(err).replace("{where}", f"row {row}, col {col}, x={x:.3f}, y={y:.3f} in "
+                                      f"{ctx.grid.crs.to_string()}"), row, col
         ) from None
     stats: dict[str, Any] = {"outputs": {}, "counts": result.counts,
                              "valid_cells": result.valid_cells,
