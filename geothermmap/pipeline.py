@@ -557,6 +557,11 @@ def _execute(tasks: list[BlockTask], ctx: RunContext, *, workers: int | None,
                     progress(1)
         return results  # type: ignore[return-value]
     except BaseException:
+        import logging
+
+        # cancelled tasks on a stopping cluster log CancelledError noise: the user has
+        # already been told why the run stopped
+        logging.getLogger("distributed").setLevel(logging.CRITICAL)
         client.cancel(futures)
         raise
     finally:
