@@ -39,11 +39,16 @@ def check_units(layer: InputLayer, declared_units: str, where: str) -> list[str]
     name = layer.name
     if name == "surface_temperature":
         if declared_units in {"degC", "deg_C", "celsius", "degree_Celsius"} and lo > 150:
-            raise InputError(f"input '{name}' ({where}): values {lo:.1f}..{hi:.1f} look like "
-                             "Kelvin but units are declared degC; set units: K")
+            raise InputError(f"input '{name}' ({where}): values {lo:.1f}..{hi:.1f} are not "
+                             "degC: Kelvin (set units: K), or tenths of a degree without a "
+                             "scale tag (set units: '0.1 degC')")
         if declared_units in {"K", "kelvin"} and hi < -100:
             raise InputError(f"input '{name}' ({where}): values look like degC but units are "
                              "declared K; set units: degC")
+        if declared_units in {"K", "kelvin"} and hi < -20:
+            notes.append(f"input '{name}': every sampled month is below {hi:.1f} degC; if the "
+                         "values are tenths of a degree Celsius, not Kelvin, set units: "
+                         "'0.1 degC'")
         if lo < -95 or hi > 75:
             raise InputError(f"input '{name}' ({where}): temperatures {lo:.1f}..{hi:.1f} degC "
                              "are outside the range of ground-surface climates; check the "

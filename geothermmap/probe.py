@@ -81,7 +81,15 @@ def _cell_of(plan: Any, x: float, y: float, crs: str) -> tuple[float, float, int
     grid = plan.grid
     if not (math.isfinite(x) and math.isfinite(y)):
         raise UserError("--at X Y must be finite numbers")
-    xs, ys = warp_transform(src, grid.crs, [x], [y])
+    hint = ""
+    if src.is_geographic and not (-180.0 <= x <= 360.0 and -90.0 <= y <= 90.0):
+        hint = (f"; ({x}, {y}) is no longitude/latitude: for map coordinates give --crs "
+                f"(the grid's is {grid.crs.to_string()})")
+    try:
+        xs, ys = warp_transform(src, grid.crs, [x], [y])
+    except Exception as err:  # noqa: BLE001 - GDAL/PROJ errors, e.g. invalid latitude
+        raise UserError(f"point ({x}, {y}) in {crs} cannot be transformed to the grid CRS "
+                        f"{grid.crs.to_string()} ({err}){hint}") from None
     gx, gy = float(xs[0]), float(ys[0])
     col_f, row_f = ~grid.affine @ (gx, gy)
     if not (math.isfinite(col_f) and math.isfinite(row_f)):
@@ -94,7 +102,7 @@ def _cell_of(plan: Any, x: float, y: float, crs: str) -> tuple[float, float, int
             f"point ({x}, {y}) in {crs} is outside the output grid: it is at "
             f"({gx:.3f}, {gy:.3f}) in {grid.crs.to_string()}, the grid covers x "
             f"{b[0]:.3f}..{b[2]:.3f}, y {b[1]:.3f}..{b[3]:.3f}; check the order (X = "
-            "easting/longitude first) and --crs")
+            "easting/longitude first) and --crs" + hint)
     return gx, gy, row, col
 
 

@@ -38,6 +38,7 @@ UNIT_CONVERSIONS: dict[str, dict[str, tuple[float, float]]] = {
         "degree_Celsius": (1.0, 0.0),
         "K": (1.0, -273.15),
         "kelvin": (1.0, -273.15),
+        "0.1 degC": (0.1, 0.0),  # packed integers in tenths of a degree, no scale tag
     },
     # canonical fraction [1]
     "fraction": {"percent": (0.01, 0.0), "%": (0.01, 0.0), "1": (1.0, 0.0),

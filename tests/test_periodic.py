@@ -418,7 +418,9 @@ def test_invariants_with_depth(fit, d, depths):
     assert np.all(np.diff(stats["t_max"]) <= 1e-9)
     assert np.all(stats["t_min"] <= stats["t_mean"] + 1e-9)
     assert np.all(stats["t_mean"] <= stats["t_max"] + 1e-9)
-    assert np.all((stats["doy_max"] >= 1) & (stats["doy_max"] < 1 + YEAR_DAYS))
+    doy = stats["doy_max"]
+    flat = np.sum(np.hypot(fit.cos_coef, fit.sin_coef)) < 1e-9  # constant: no day (NaN)
+    assert np.all(np.isnan(doy)) if flat else np.all((doy >= 1) & (doy < 1 + YEAR_DAYS))
     zf = frost_depth_conduction(fit, d)
     assert zf == FROST_PERENNIAL or zf >= 0
 
@@ -537,3 +539,17 @@ def test_temperature_at_depth_matches_complex_series_and_validates_depth():
         temperature_at_depth(fit, d, -0.1, 0.0)
     with pytest.raises(ValueError):
         depth_statistics(fit, d, [0.5, -1.0])
+
+
+def test_constant_temperature_has_no_day_of_extremes():
+    # a constant cycle has its minimum everywhere: doy_min/doy_max are undefined (NaN),
+    # t_min = t_max = mean (exact: Carslaw & Jaeger 1959 Sec. 2.6 with zero amplitude)
+    from geothermmap.physics.harmonics import fit_harmonics
+
+    fit = fit_harmonics(np.full((12, 3), 5.0), 2)
+    from geothermmap.physics import periodic
+
+    out = periodic.depth_statistics(fit, np.full(3, 2.0), [0.1, 1.0])
+    assert np.isnan(out["doy_min"]).all() and np.isnan(out["doy_max"]).all()
+    np.testing.assert_allclose(out["t_min"], 5.0, atol=1e-12)
+    np.testing.assert_allclose(out["t_max"], 5.0, atol=1e-12)

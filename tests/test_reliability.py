@@ -378,3 +378,90 @@ def test_recipe_cannot_write_outside_output_folder(tmp_path):
     after = set(tmp_path.rglob("*"))
     new = {p for p in after - before if out not in p.parents and p != out}
     assert not new, new
+
+
+# ------------------------------------------------------------------ input encodings
+
+
+def _base_and(tmp_path, **replace_files):
+    files = make_case(tmp_path, width=40, height=30, nodata_hole=False)
+    base = run_recipe(write_recipe(tmp_path, files, outputs=["t_mean", "conductivity"]),
+                      tmp_path / "base")
+    return files, base
+
+
+def _max_diff(a, b, name):
+    with rasterio.open(a.outputs[name]) as x, rasterio.open(b.outputs[name]) as y:
+        return float(np.nanmax(np.abs(x.read() - y.read())))
+
+
+def test_packed_integers_use_the_band_scale(tmp_path):
+    # GDAL's scale/offset metadata (value = raw * scale + offset): int16 tenths of a degree
+    # must give the float file's maps (to the 0.05 K rounding of the packing)
+    files, base = _base_and(tmp_path)
+    with rasterio.open(files["surface_temperature"]) as ds:
+        t, crs, tr = ds.read(), ds.crs, ds.transform
+    path = tmp_path / "t16.tif"
+    with rasterio.open(path, "w", driver="GTiff", width=40, height=30, count=12, dtype="int16",
+                       crs=crs, transform=tr, nodata=-32768) as dst:
+        dst.write(np.round(t * 10).astype("int16"))
+        dst.scales = [0.1] * 12
+        dst.offsets = [0.0] * 12
+    files["surface_temperature"] = path
+    packed = run_recipe(write_recipe(tmp_path, files, outputs=["t_mean", "conductivity"]),
+                        tmp_path / "packed")
+    assert _max_diff(base, packed, "t_mean") < 0.05
+
+
+def test_bottom_up_rasters_give_the_same_maps(tmp_path):
+    files, base = _base_and(tmp_path)
+    for name in ("surface_temperature", "sand"):
+        with rasterio.open(files[name]) as ds:
+            data, crs, tr = ds.read(), ds.crs, ds.transform
+        up = rasterio.Affine(tr.a, 0.0, tr.c, 0.0, -tr.e, tr.f + tr.e * data.shape[1])
+        path = tmp_path / f"{name}_bottom_up.tif"
+        with rasterio.open(path, "w", driver="GTiff", width=data.shape[2], height=data.shape[1],
+                           count=data.shape[0], dtype="float32", crs=crs, transform=up) as dst:
+            dst.write(data[:, ::-1, :])
+        files[name] = path
+    flipped = run_recipe(write_recipe(tmp_path, files, outputs=["t_mean", "conductivity"]),
+                         tmp_path / "flipped")
+    assert _max_diff(base, flipped, "t_mean") == 0.0
+    assert _max_diff(base, flipped, "conductivity") == 0.0
+
+
+def test_monthly_file_list_with_different_tiling(tmp_path):
+    files, base = _base_and(tmp_path)
+    with rasterio.open(files["surface_temperature"]) as ds:
+        t, crs, tr = ds.read(), ds.crs, ds.transform
+    paths = []
+    for m in range(12):
+        path = tmp_path / f"m{m:02d}.tif"
+        extra = {} if m == 0 else {"tiled": True, "blockxsize": 16, "blockysize": 16}
+        with rasterio.open(path, "w", driver="GTiff", width=40, height=30, count=1,
+                           dtype="float32", crs=crs, transform=tr, **extra) as dst:
+            dst.write(t[m][None])
+        paths.append(str(path))
+    recipe = yaml.safe_load(write_recipe(tmp_path, files, outputs=["t_mean", "conductivity"])
+                            .read_text())
+    recipe["inputs"]["surface_temperature"]["path"] = paths
+    (tmp_path / "list.yaml").write_text(yaml.safe_dump(recipe))
+    listed = run_recipe(tmp_path / "list.yaml", tmp_path / "listed")
+    assert _max_diff(base, listed, "t_mean") == 0.0
+
+
+def test_probe_with_map_coordinates_but_no_crs(tmp_path):
+    files = make_case(tmp_path, width=40, height=30)
+    result = CliRunner().invoke(main, ["probe", str(write_recipe(tmp_path, files)), "--at",
+                                       str(X0 + 500), str(Y0 - 500)])
+    _assert_error(result, "--crs")
+
+
+def test_one_pixel_strip_is_a_valid_cog(tmp_path):
+    # no overview level can halve a 1-pixel side: the strip gets none (COG readers reject
+    # a decimation of 1)
+    files = make_case(tmp_path, width=1, height=40, nodata_hole=False)
+    res = run_recipe(write_recipe(tmp_path, files, outputs=["t_mean"], chunk=64),
+                     tmp_path / "o")
+    with rasterio.open(res.outputs["t_mean"]) as ds:
+        assert ds.overviews(1) == [] and np.isfinite(ds.read(1)).all()

@@ -53,6 +53,9 @@ _NEWTON_MAX_ITER = 12  # Newton steps in time per candidate extremum
 _NEWTON_TOL_DAYS = 1e-4  # last Newton step [day]; quadratic convergence then leaves
 # a time error near 1e-9 day and a value error near 1e-14 K
 _BRACKETED_MAX_ITER = 60  # Newton/bisection steps in time on a bracket (bisection: ~20)
+#: Sum of harmonic amplitudes [K] below which a cycle counts as constant: doy_min and
+#: doy_max are then NaN (a 12-month fit of a constant leaves ~1e-15 K of rounding).
+FLAT_CYCLE_K = 1e-9
 _DEPTH_TOL_M = 1e-6  # frost-depth root tolerance [m]; the contract is 1 mm
 _DEPTH_MAX_ITER = 100  # safeguarded Newton/bisection steps in depth (bisection alone: ~40)
 
@@ -1238,7 +1241,8 @@ def depth_statistics(
         ``"t_min"``, ``"t_max"``: minimum and maximum over the year of the full
         multi-harmonic cycle at depth. [degC]
         ``"doy_min"``, ``"doy_max"``: day of year ``1 + t`` of the minimum and maximum,
-        in [1, 366.25). [day]
+        in [1, 366.25); NaN for a constant temperature (amplitudes summing below
+        :data:`FLAT_CYCLE_K`). [day]
         NaN in a cell's inputs gives NaN in all its outputs.
 
     References
@@ -1279,6 +1283,11 @@ def depth_statistics(
         out["t_min"], out["t_max"], out["doy_min"], out["doy_max"],
         out["t_mean"], out["amplitude"], out["phase_lag"],
     )  # fmt: skip
+    # a cycle with no amplitude (a constant temperature) has no day of its extremes
+    flat = np.sum(np.hypot(cos_coef, sin_coef), axis=0) < FLAT_CYCLE_K
+    if flat.any():
+        out["doy_min"][:, flat] = np.nan
+        out["doy_max"][:, flat] = np.nan
     return {key: val.reshape((n_depths,) + shape) for key, val in out.items()}
 
 

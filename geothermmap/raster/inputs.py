@@ -52,6 +52,17 @@ class SourceFile:
     col_offset: int  # target col 0 is source col col_offset (same_grid only)
     row_offset: int
     resampling: str  # "bilinear" | "average" | "nearest"
+    # per-band scale and offset of the file's metadata (value = raw * scale + offset),
+    # as GDAL stores packed integers (e.g. int16 tenths of a degree: scale 0.1)
+    scales: tuple[float, ...] = ()
+    offsets: tuple[float, ...] = ()
+
+    def unpack(self, data: np.ndarray) -> np.ndarray:
+        """Apply the band scales and offsets in place (after nodata became NaN)."""
+        if any(v != 1.0 for v in self.scales) or any(v != 0.0 for v in self.offsets):
+            data *= np.asarray(self.scales, np.float32).reshape(-1, 1, 1)
+            data += np.asarray(self.offsets, np.float32).reshape(-1, 1, 1)
+        return data
 
 
 @dataclass(frozen=True)
@@ -123,13 +134,13 @@ def _read_source(src: SourceFile, grid: TargetGrid, window: Window) -> np.ndarra
         if inside:  # the usual case: one read straight into the result, no copy
             data = ds.read(list(src.bands), window=Window(c0, r0, w, h), out_dtype="float32")
             _mask_nodata(data, src.nodata)
-            return data
+            return src.unpack(data)
         out = np.full((len(src.bands), h, w), np.nan, dtype=np.float32)
         if rr1 > rr0 and cc1 > cc0:
             data = ds.read(list(src.bands), window=Window(cc0, rr0, cc1 - cc0, rr1 - rr0),
                            out_dtype="float32")
             _mask_nodata(data, src.nodata)
-            out[:, rr0 - r0:rr1 - r0, cc0 - c0:cc1 - c0] = data
+            out[:, rr0 - r0:rr1 - r0, cc0 - c0:cc1 - c0] = src.unpack(data)
         return out
     key = ("vrt", src.path, src.resampling, grid)
     handles = _handles()
@@ -145,8 +156,8 @@ def _read_source(src: SourceFile, grid: TargetGrid, window: Window) -> np.ndarra
             nodata=np.nan,
             dtype="float32",
         )
-    vrt = handles[key]
-    return vrt.read(list(src.bands), window=window, out_dtype="float32")
+    vrt = handles[key]  # resampling is linear, so unpacking after it is the same
+    return src.unpack(vrt.read(list(src.bands), window=window, out_dtype="float32"))
 
 
 def _mask_nodata(data: np.ndarray, nodata: float | None) -> None:
@@ -193,7 +204,8 @@ def _same_grid(ds, grid: TargetGrid) -> tuple[bool, int, int]:
 def _resampling_for(ds, grid: TargetGrid) -> str:
     """Average when the source is finer than the target (downsampling), else bilinear."""
     try:
-        left, bottom, right, top = transform_bounds(ds.crs, grid.crs, *ds.bounds, densify_pts=21)
+        left, bottom, right, top = transform_bounds(ds.crs, grid.crs, *_north_up_bounds(ds),
+                                                   densify_pts=21)
     except Exception:  # noqa: BLE001 - fall back to bilinear if bounds cannot be projected
         return "bilinear"
     src_res = min((right - left) / ds.width, (top - bottom) / ds.height)
@@ -236,6 +248,8 @@ def open_layer(
                 col_offset=col,
                 row_offset=row,
                 resampling="bilinear" if same else _resampling_for(ds, grid),
+                scales=tuple(float(ds.scales[b - 1]) for b in bands),
+                offsets=tuple(float(ds.offsets[b - 1]) for b in bands),
             ))
     n_bands = sum(len(s.bands) for s in sources)
     if expected_bands is not None and not _band_count_ok(n_bands, expected_bands):
@@ -265,7 +279,8 @@ def coverage_fraction(layer: InputLayer, grid: TargetGrid) -> float:
     for src in layer.sources:
         with rasterio.open(src.path) as ds:
             try:
-                l, b, r, t = transform_bounds(ds.crs, grid.crs, *ds.bounds, densify_pts=21)
+                l, b, r, t = transform_bounds(ds.crs, grid.crs, *_north_up_bounds(ds),
+                                              densify_pts=21)
             except Exception:  # noqa: BLE001
                 return 0.0
         iw = max(0.0, min(r, gr) - max(l, gl))
@@ -308,7 +323,8 @@ def _sample_windows(ds, max_side: int, budget_cells: int = SAMPLE_BUDGET_CELLS
 
 def sample_values(layer: InputLayer, max_side: int = 256,
                   budget_cells: int = SAMPLE_BUDGET_CELLS) -> np.ndarray:
-    """A bounded sample of every band in native resolution, canonical units (for checks).
+    """A bounded sample of every band in native resolution, canonical units (for checks),
+    as one flat array.
 
     Uses the file's overviews when it has them (a decimated read of about ``max_side``
     pixels a side); otherwise whole blocks spread evenly over the raster, decimated (see
@@ -332,12 +348,26 @@ def sample_values(layer: InputLayer, max_side: int = 256,
                          .copy() for w in windows]
             data = np.concatenate([p.reshape(len(bands), -1) for p in parts], axis=1)
             _mask_nodata(data, src.nodata)  # float32, as in block reads
-            chunks.append(data.astype(np.float64))
-    data = np.concatenate(chunks, axis=0)
+            data = src.unpack(data[:, :, None])[:, :, 0]
+            chunks.append(data.astype(np.float64).ravel())
+    data = np.concatenate(chunks)  # files of a list may differ in size and tiling
     return data * layer.scale + layer.offset
 
 
+def _north_up_bounds(ds) -> tuple[float, float, float, float]:
+    """(left, bottom, right, top) with bottom < top, also for bottom-up rasters."""
+    left, bottom, right, top = ds.bounds
+    return min(left, right), min(bottom, top), max(left, right), max(bottom, top)
+
+
 def grid_of(path: Path, name: str) -> TargetGrid:
-    """The grid of a raster file (used as the default target grid)."""
+    """The grid of a raster file (used as the default target grid), north-up: a bottom-up
+    raster (positive row step) gives the same cells in north-up order (read by warping)."""
     with _open_checked(path, name) as ds:
+        t = ds.transform
+        if t.b != 0.0 or t.d != 0.0:
+            raise InputError(f"input '{name}': {path} has a rotated grid; give an explicit "
+                             "'grid' {crs, resolution, bounds} for the output")
+        if t.e > 0:  # bottom-up
+            return TargetGrid.from_bounds(ds.crs, _north_up_bounds(ds), (t.a, t.e))
         return TargetGrid.from_parts(ds.crs, ds.transform, ds.width, ds.height)

@@ -78,9 +78,12 @@ def tile_codec(dtype: str, compression: str, coded: bool, tile: int = TILE,
 
 
 def overview_count(width: int, height: int, smallest: int = 256) -> int:
-    """Overview levels so the coarsest is under ``smallest`` pixels a side (at least one)."""
+    """Overview levels so the coarsest is under ``smallest`` pixels a side (at least one),
+    and no more than halve the shorter side: a 1-pixel strip gets none (a level of the
+    same width would have a decimation of 1, which COG readers reject)."""
     side = max(width, height)
-    return max(1, math.ceil(math.log2(max(side / smallest, 1.0))))
+    wanted = max(1, math.ceil(math.log2(max(side / smallest, 1.0))))
+    return min(wanted, int(math.log2(max(min(width, height), 1))))
 
 
 def block_path(work_dir: Path, bi: int, bj: int) -> Path:
