@@ -74,6 +74,11 @@ def check_units(layer: InputLayer, declared_units: str, where: str) -> list[str]
             raise InputError(f"input '{name}' ({where}): bulk density {lo:.4g}..{hi:.4g} kg m-3 "
                              "is implausible for soil; check the declared units (g cm-3 or "
                              "kg m-3)")
+    elif name in {"n_factor_freezing", "n_factor_thawing"}:
+        if lo <= 0.0 or hi >= 10.0:
+            raise InputError(f"input '{name}' ({where}): n-factors {lo:.3g}..{hi:.3g} are not "
+                             "ratios of surface to air degree-days (0 < n < 10, typically "
+                             "0.2..2.5); check the file and its units")
     elif name == "organic_matter" and declared_units in {"percent", "%"} and 0 < hi <= 0.01:
         notes.append(f"input '{name}': all values at or below 1 % organic matter; if they are "
                      "fractions, declare units: '1'")

@@ -48,3 +48,14 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
             sys.exit(EXIT_INTERNAL_ERROR)
 
     return wrapper
+
+
+def entry() -> None:
+    """The ``geothermmap`` console script: Ctrl-C while the libraries load (about a
+    second) ends with the same message and exit code as later, not a traceback."""
+    try:
+        from geothermmap.cli import main
+    except KeyboardInterrupt:
+        _err("interrupted before the run started; nothing was written.")
+        sys.exit(EXIT_INTERRUPTED)
+    main()

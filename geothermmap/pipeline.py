@@ -402,7 +402,8 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
                              "valid_cells": result.valid_cells,
                              "nodata_cells": result.nodata_cells}
     for name, arr in result.outputs.items():
-        stats["outputs"][name] = [_partial_stats(arr[i]) for i in range(arr.shape[0])]
+        codes = OUTPUTS[name].codes
+        stats["outputs"][name] = [_partial_stats(arr[i], codes) for i in range(arr.shape[0])]
     if CANCELLED.is_set():  # interrupted while computing: the work folder is going away
         return None
     stats_tmp = stats_path.with_name(stats_path.name + f".{os.getpid()}{PARTIAL_SUFFIX}")
@@ -435,27 +436,40 @@ def overview_tasks(tasks: list[BlockTask], pyramid: TilePyramid
 
 
 @njit(cache=True, nogil=True)
-def _stats_pass(a):
-    """Count, sum, sum of squares, min, max of the finite values, in one float64 pass."""
+def _stats_pass(a, codes):
+    """Count, sum, sum of squares, min, max of the finite values that are no code value,
+    and the count of each code value, in one float64 pass."""
     n = 0
     total = 0.0
     squares = 0.0
     lo = math.inf
     hi = -math.inf
+    coded = np.zeros(codes.shape[0], dtype=np.int64)
     for v in a.ravel():
         x = np.float64(v)
         if math.isfinite(x):
+            is_code = False
+            for k in range(codes.shape[0]):
+                if x == codes[k]:
+                    coded[k] += 1
+                    is_code = True
+            if is_code:
+                continue
             n += 1
             total += x
             squares += x * x
             lo = min(lo, x)
             hi = max(hi, x)
-    return n, total, squares, lo, hi
+    return n, total, squares, lo, hi, coded
 
 
-def _partial_stats(a: np.ndarray) -> list[float]:
-    n, total, squares, lo, hi = _stats_pass(np.ascontiguousarray(a))
-    return [int(n), float(total), float(squares), float(lo), float(hi)]
+def _partial_stats(a: np.ndarray, codes: tuple[tuple[float, str], ...] = ()) -> list:
+    """[count, sum, sum of squares, min, max, [count of each code value]] of one band:
+    code values (e.g. frost_depth -1) are counted apart, not averaged."""
+    values = np.array([c for c, _ in codes], dtype=np.float64)
+    n, total, squares, lo, hi, coded = _stats_pass(np.ascontiguousarray(a), values)
+    return [int(n), float(total), float(squares), float(lo), float(hi),
+            [int(k) for k in coded]]
 
 
 def _combine(parts: list[dict[str, Any]], outputs: tuple[str, ...]) -> tuple[dict, dict]:
@@ -472,22 +486,29 @@ def _combine(parts: list[dict[str, Any]], outputs: tuple[str, ...]) -> tuple[dic
             counts[k] = max(counts.get(k, 0), v) if k.endswith("_max") else counts.get(k, 0) + v
         for name in outputs:
             bands = p["outputs"][name]
-            acc = totals.setdefault(name, [[0, 0.0, 0.0, math.inf, -math.inf] for _ in bands])
+            n_codes = len(OUTPUTS[name].codes)
+            acc = totals.setdefault(name, [[0, 0.0, 0.0, math.inf, -math.inf, [0] * n_codes]
+                                           for _ in bands])
             for a, b in zip(acc, bands, strict=True):
                 a[0] += b[0]
                 a[1] += b[1]
                 a[2] += b[2]
                 a[3] = min(a[3], b[3])
                 a[4] = max(a[4], b[4])
+                coded = b[5] if len(b) > 5 else [0] * n_codes  # block files of old runs
+                a[5] = [x + y for x, y in zip(a[5], coded, strict=True)]
     summary = {}
     for name, bands in totals.items():
         rows = []
-        for n, s, ss, lo, hi in bands:
+        for n, s, ss, lo, hi, coded in bands:
             n = int(n)
             mean = s / n if n else None
             std = math.sqrt(max(ss / n - mean * mean, 0.0)) if n else None
-            rows.append({"count": n, "mean": mean, "std": std,
-                         "min": lo if n else None, "max": hi if n else None})
+            row = {"count": n, "mean": mean, "std": std,
+                   "min": lo if n else None, "max": hi if n else None}
+            row.update({f"{code_name}_cells": k
+                        for (_, code_name), k in zip(OUTPUTS[name].codes, coded, strict=True)})
+            rows.append(row)
         summary[name] = rows
     return summary, counts
 
@@ -765,11 +786,13 @@ def _is_partial(name: str) -> bool:
 
 
 def _remove_partials(out: Path) -> None:
-    """Remove temporary files of an unfinished write (never under a final name)."""
-    if out.exists():
-        for p in out.iterdir():
-            if p.is_file() and _is_partial(p.name):
-                p.unlink(missing_ok=True)
+    """Remove temporary files of an unfinished write (never under a final name), in the
+    folder and its quicklook folder."""
+    for folder in (out, out / "quicklook"):
+        if folder.is_dir():
+            for p in folder.iterdir():
+                if p.is_file() and _is_partial(p.name):
+                    p.unlink(missing_ok=True)
 
 
 def band_descriptions(plan: RunPlan, name: str) -> list[tuple[str, dict[str, str]]]:

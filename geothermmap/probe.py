@@ -63,10 +63,17 @@ class ProbeResult:
 
     @property
     def fit(self) -> HarmonicFit:
-        """Harmonic fit of the cell's monthly surface-temperature climatology."""
+        """Harmonic fit of the cell's ground-surface cycle (with ``surface.kind: air``
+        the n-factored air cycle, as in the maps)."""
         t = self.inputs["surface_temperature"]
         monthly = t.reshape(-1, 12).mean(axis=0).reshape(12, 1)
-        return harmonics.fit_harmonics(monthly, self.plan.config.harmonics)
+        fit = harmonics.fit_harmonics(monthly, self.plan.config.harmonics)
+        if self.plan.config.extras.get("surface_kind") == "air":
+            from geothermmap.physics.frost import ground_surface_harmonics
+
+            fit = ground_surface_harmonics(fit, self.inputs["n_factor_freezing"],
+                                           self.inputs["n_factor_thawing"])
+        return fit
 
     @property
     def damping_depth_m(self) -> float:

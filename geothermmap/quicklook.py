@@ -333,8 +333,12 @@ def render_quicklook(tif: str | Path, *, name: str | None = None, max_side: int 
         path = Path(out_png)
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_name(f".{path.stem}.partial.png")
-        tmp.write_bytes(png)
-        tmp.replace(path)
+        try:
+            tmp.write_bytes(png)
+            tmp.replace(path)
+        except BaseException:  # an interrupt too: no partial picture stays behind
+            tmp.unlink(missing_ok=True)
+            raise
     return Quicklook(name, png, extent, crs.to_string() if crs else "", units, cmap_name,
                      norm_info, n_bands, tuple(values.shape[1:]), code_labels,
                      "" if categorical else cb_label, descriptions if n_bands > 1 else [],

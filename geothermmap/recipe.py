@@ -83,6 +83,11 @@ DEFAULT_ORGANIC_MATTER_PERCENT = 0.0  # mineral soil unless the recipe says othe
 CONDUCTIVITY_MODEL_NAMES = ("johansen", "cote-konrad", "lu2007")
 
 
+#: Largest output grid a recipe may ask for (a 200,000 x 200,000 cell region): beyond it
+#: a resolution is almost surely in the wrong units.
+MAX_GRID_CELLS = 4e10
+
+
 class _Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True)
 
@@ -122,17 +127,31 @@ class GridSpec(_Strict):
     @classmethod
     def _positive(cls, v: float | tuple[float, float]) -> float | tuple[float, float]:
         values = (v,) if isinstance(v, int | float) else v
-        if any(r <= 0 for r in values):
-            raise ValueError("resolution must be positive (map units per pixel)")
+        if not all(math.isfinite(r) and r > 0 for r in values):
+            raise ValueError("resolution must be positive and finite (map units per pixel)")
         return v
 
     @field_validator("bounds")
     @classmethod
     def _ordered(cls, v: tuple[float, float, float, float]) -> tuple[float, float, float, float]:
+        if not all(math.isfinite(b) for b in v):
+            raise ValueError("bounds must be finite numbers [xmin, ymin, xmax, ymax]")
         if not (v[0] < v[2] and v[1] < v[3]):
             raise ValueError("bounds must be [xmin, ymin, xmax, ymax] with xmin < xmax and "
                              "ymin < ymax")
         return v
+
+
+    @model_validator(mode="after")
+    def _size(self) -> GridSpec:
+        res = self.resolution
+        rx, ry = (res, res) if isinstance(res, int | float) else res
+        cells = ((self.bounds[2] - self.bounds[0]) / rx) * ((self.bounds[3] - self.bounds[1]) / ry)
+        if cells > MAX_GRID_CELLS:
+            raise ValueError(f"bounds / resolution give {cells:.3g} cells, more than "
+                             f"{MAX_GRID_CELLS:.0e}; check the resolution's units (map units "
+                             "of the crs: metres or degrees)")
+        return self
 
 
 class SoilSpec(_Strict):
@@ -163,7 +182,7 @@ class FreezeThawSpec(_Strict):
     @field_validator("freezing_range")
     @classmethod
     def _range(cls, v: tuple[float, float]) -> tuple[float, float]:
-        if not v[0] < v[1] <= 0.0:
+        if not (math.isfinite(v[0]) and v[0] < v[1] <= 0.0):
             raise ValueError("freezing_range must be [low, high] with low < high <= 0 degC")
         return v
 
@@ -195,8 +214,8 @@ class SurfaceSpec(_Strict):
 
 
 class RootZoneSpec(_Strict):
-    top: float = Field(0.0, ge=0.0)
-    bottom: float = Field(0.3, gt=0.0)
+    top: float = Field(0.0, ge=0.0, allow_inf_nan=False)
+    bottom: float = Field(0.3, gt=0.0, allow_inf_nan=False)
 
     @model_validator(mode="after")
     def _order(self) -> RootZoneSpec:
@@ -206,7 +225,7 @@ class RootZoneSpec(_Strict):
 
 
 class ThresholdSpec(_Strict):
-    depth: float = Field(0.1, ge=0.0)
+    depth: float = Field(0.1, ge=0.0, allow_inf_nan=False)
     values: list[float] = Field(default_factory=lambda: [5.0, 10.0], min_length=1)
     degree_day_base: float = 5.0
 
@@ -237,7 +256,7 @@ class Recipe(_Strict):
     outputs: list[str] = Field(default_factory=lambda: ["all"])
     strict: bool = False
     chunk: int | None = None
-    zero_amplitude_tolerance: float = Field(0.1, gt=0.0)
+    zero_amplitude_tolerance: float = Field(0.1, gt=0.0, allow_inf_nan=False)
     compression: Literal["deflate", "zstd", "lzw"] = "deflate"
     mantissa_bits: int | None = Field(None, ge=1, le=23)
     freeze_thaw: FreezeThawSpec = FreezeThawSpec()

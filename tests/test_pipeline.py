@@ -243,3 +243,23 @@ def test_mantissa_bits_out_of_range_is_a_recipe_error(tmp_path):
     files = make_case(tmp_path)
     with pytest.raises(RecipeError, match="mantissa_bits"):
         load_recipe(write_recipe(tmp_path, files, mantissa_bits=24))
+
+
+def test_record_statistics_count_code_values_apart():
+    # frost_depth -1 (frozen at depth) is a code, not a depth: the run record's band
+    # statistics leave it out and count it (numpy on the masked values as reference)
+    from geothermmap.pipeline import _combine, _partial_stats
+
+    rng = np.random.default_rng(3)
+    a = rng.uniform(0.0, 2.0, (2, 50, 40)).astype(np.float32)
+    a[0, :10] = -1.0
+    a[1, :, :5] = np.nan
+    codes = OUTPUTS["frost_depth"].codes
+    parts = [{"valid_cells": 0, "nodata_cells": 0, "counts": {},
+              "outputs": {"frost_depth": [_partial_stats(blk, codes)]}} for blk in a]
+    row = _combine(parts, ("frost_depth",))[0]["frost_depth"][0]
+    measured = a[np.isfinite(a) & (a != -1.0)].astype(np.float64)
+    assert row["frozen_at_depth_cells"] == 400 and row["count"] == measured.size
+    assert row["min"] == measured.min()
+    np.testing.assert_allclose(row["mean"], measured.mean(), rtol=1e-12)
+    np.testing.assert_allclose(row["std"], measured.std(), rtol=1e-9)
