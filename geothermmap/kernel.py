@@ -232,8 +232,8 @@ def compute_block(inputs: dict[str, np.ndarray], config: KernelConfig) -> Kernel
         return KernelResult(outputs, counts, 0, int(valid.size))
 
     cells = {k: take(v).astype(np.float64) for k, v in fields.items()}
-    cells, counts, keep = apply_bounds(cells, config.strict, valid_index, shape)
-    counts.update({f"nodata_cells_in_{k}": n for k, n in missing.items() if n})
+    cells, bounds_counts, keep = apply_bounds(cells, config.strict, valid_index, shape)
+    counts.update(bounds_counts)
     monthly_cells = take(monthly).astype(np.float64)
     for key in ("n_factor_freezing", "n_factor_thawing"):
         if key in inputs:
