@@ -672,45 +672,49 @@ def _freeze_thaw_kernel(
 
     next_cell = 0
     n_active = 0
-    for s in range(nb):
-        c = next_cell
-        next_cell += 1
-        cell[s] = c
-        active[s] = True
-        n_active += 1
-        kstep[s] = k_first[c]
-        offset[s] = 0
-        year[s] = 0
-        nspin[s] = -1 if k_first[c] > 0 else 0  # -1: part-year pre-pass
-        heat[s] = 0.0
-        bad[s] = 0
-        iters[s] = 0
-        corr[s] = 0.0
-        _load_slot(
-            s,
-            c,
-            par,
-            ku_a,
-            kf_a,
-            cu_a,
-            cf_a,
-            lv_a,
-            qb_a,
-            t_init,
-            t_lo,
-            t_hi,
-            T,
-            H,
-            t_start,
-            tmn,
-            tmx,
-            tsum,
-            fdays,
-            tmin_c,
-            tmax_c,
-        )
-
-    while n_active > 0:
+    while True:
+        # ---- free slots (all of them at the start) take the next cells
+        for s in range(nb):
+            if active[s] or next_cell >= n_cells:
+                continue
+            c = next_cell
+            next_cell += 1
+            cell[s] = c
+            active[s] = True
+            n_active += 1
+            kstep[s] = k_first[c]
+            offset[s] = 0
+            year[s] = 0
+            nspin[s] = -1 if k_first[c] > 0 else 0  # -1: part-year pre-pass
+            heat[s] = 0.0
+            bad[s] = 0
+            iters[s] = 0
+            corr[s] = 0.0
+            _load_slot(
+                s,
+                c,
+                par,
+                ku_a,
+                kf_a,
+                cu_a,
+                cf_a,
+                lv_a,
+                qb_a,
+                t_init,
+                t_lo,
+                t_hi,
+                T,
+                H,
+                t_start,
+                tmn,
+                tmx,
+                tsum,
+                fdays,
+                tmin_c,
+                tmax_c,
+            )
+        if n_active == 0:
+            break
         # ---- one implicit time step for all slots
         for s in range(nb):
             if active[s]:
@@ -908,45 +912,8 @@ def _freeze_thaw_kernel(
             heat_in[c] = heat[s]
             bad_out[c] = bad[s]
             iter_out[c] = iters[s]
-            if next_cell >= n_cells:
-                active[s] = False
-                n_active -= 1
-                continue
-            # refill the slot with the next cell
-            c = next_cell
-            next_cell += 1
-            cell[s] = c
-            kstep[s] = k_first[c]
-            offset[s] = 0
-            year[s] = 0
-            nspin[s] = -1 if k_first[c] > 0 else 0
-            heat[s] = 0.0
-            bad[s] = 0
-            iters[s] = 0
-            corr[s] = 0.0
-            _load_slot(
-                s,
-                c,
-                par,
-                ku_a,
-                kf_a,
-                cu_a,
-                cf_a,
-                lv_a,
-                qb_a,
-                t_init,
-                t_lo,
-                t_hi,
-                T,
-                H,
-                t_start,
-                tmn,
-                tmx,
-                tsum,
-                fdays,
-                tmin_c,
-                tmax_c,
-            )
+            active[s] = False  # refilled at the top of the next step
+            n_active -= 1
 
 
 # ---------------------------------------------------------------------- wrappers
