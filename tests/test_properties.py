@@ -171,6 +171,22 @@ def test_coarse_rule():
     np.testing.assert_array_equal(sp.is_coarse(np.array([0.2, 0.4, 0.41, 0.9])), [0, 0, 1, 1])
 
 
+@pytest.mark.parametrize("model", MODELS)
+@pytest.mark.parametrize("percent", [20.0, 30.0, 40.0])
+def test_class_limits_do_not_depend_on_how_texture_is_spelled(model, percent):
+    # The same soil stored as a float32 fraction (0.4 -> 0.40000001) or as float32
+    # percent scaled by 0.01 as the input reader does (-> 0.39999998) must land in the
+    # same class on both sides of the limits of Lu et al. (2007, Fig. 2: sand > 0.40),
+    # the quartz > 0.2 switch (Peters-Lidard et al., 1998) and the organic-soil limit.
+    as_fraction = float(np.float32(percent / 100.0))
+    as_percent = float(np.float32(percent) * np.float32(0.01))
+    assert as_fraction != as_percent or percent == 20.0
+    props = [sp.soil_thermal_properties(v, 0.2, 0.25, 1400.0, v, model=model)
+             for v in (as_fraction, as_percent)]
+    for key in KEYS:
+        assert props[0][key] == pytest.approx(props[1][key], rel=1e-6)
+
+
 # --------------------------------------------------------------------------------------
 # Heat capacity (de Vries, 1963)
 # --------------------------------------------------------------------------------------

@@ -112,6 +112,11 @@ K_QUARTZ_W_MK = 7.7  # [johansen1975] via [peterslidard1998], from memory
 K_OTHER_MINERALS_W_MK = 2.0  # other minerals, quartz fraction > 0.2 [johansen1975], from memory
 K_OTHER_MINERALS_LOW_QUARTZ_W_MK = 3.0  # quartz fraction <= 0.2 [peterslidard1998], from memory
 QUARTZ_LOW_THRESHOLD = 0.2  # switch between the two values above [peterslidard1998]
+#: Fractions within this of a class limit count as on the limit (the lower class). Inputs
+#: come as float32, whose rounding is ~6e-8 relative: 40 % read as a fraction is
+#: 0.40000001, as percent / 100 it is 0.39999998. A soil's class must not depend on how
+#: its texture was spelled, so the limits are compared with this margin. [1]
+CLASS_LIMIT_TOLERANCE = 1e-6
 K_ORGANIC_W_MK = 0.25  # organic matter [farouki1981], [devries1963], from memory
 K_WATER_W_MK = 0.57  # liquid water near 10 degC [devries1963], [farouki1981], from memory
 K_ICE_W_MK = 2.2  # ice near 0 degC [devries1963], [farouki1981], from memory (C&K: 2.24)
@@ -388,6 +393,9 @@ def quartz_from_sand(sand_fraction: ArrayLike) -> Array:
 def is_coarse(sand_fraction: ArrayLike) -> Array:
     """Coarse-textured soil: sand fraction above 0.40 (Lu et al., 2007, Fig. 2).
 
+    A fraction within :data:`CLASS_LIMIT_TOLERANCE` of 0.40 (float32 rounding of 40 %)
+    counts as 0.40, i.e. fine-textured.
+
     Parameters
     ----------
     sand_fraction : array_like
@@ -397,7 +405,7 @@ def is_coarse(sand_fraction: ArrayLike) -> Array:
     -------
     Boolean (array); NaN sand gives False, callers propagate the NaN separately.
     """
-    return np.greater(sand_fraction, COARSE_SAND_FRACTION)
+    return np.greater(sand_fraction, COARSE_SAND_FRACTION + CLASS_LIMIT_TOLERANCE)
 
 
 # --------------------------------------------------------------------------------------
@@ -514,7 +522,7 @@ def solids_conductivity(
     Farouki, O. T. (1981). Thermal properties of soils. CRREL Monograph 81-1.
     """
     ln_other = _choose(
-        np.greater(quartz_fraction, QUARTZ_LOW_THRESHOLD),
+        np.greater(quartz_fraction, QUARTZ_LOW_THRESHOLD + CLASS_LIMIT_TOLERANCE),
         math.log(K_OTHER_MINERALS_W_MK),
         math.log(K_OTHER_MINERALS_LOW_QUARTZ_W_MK),
         like=quartz_fraction,
@@ -720,7 +728,7 @@ def cote_konrad_soil_class(sand_fraction: ArrayLike, organic_fraction: ArrayLike
     -------
     Integer-valued class code (float where inputs are NaN: NaN). [1]
     """
-    organic = np.greater_equal(organic_fraction, ORGANIC_SOIL_FRACTION)
+    organic = np.greater_equal(organic_fraction, ORGANIC_SOIL_FRACTION - CLASS_LIMIT_TOLERANCE)
     mineral_code = _choose(is_coarse(sand_fraction), 1.0, 2.0, like=sand_fraction)
     return _with_nan_of(
         _choose(organic, 3.0, mineral_code, like=organic_fraction), sand_fraction, organic_fraction
