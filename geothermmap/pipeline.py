@@ -745,15 +745,28 @@ def run_recipe(
         # maps already complete stay and are listed in the run record
         _remove_partials(out)
         _remove_work_dir(out)
+        _close_record(out, rec, "interrupted", "stopped by an interrupt")
         raise
-    except BaseException:
+    except BaseException as err:
         _remove_partials(out)  # block files stay: --resume reuses them
+        _close_record(out, rec, "failed", str(err) or type(err).__name__)
         raise
     finally:
         close_cached_handles()
     shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
     paths = {n: out / OUTPUTS[n].filename for n in plan.outputs}
     return RunResult(out, paths, out / RECORD_NAME, rec)
+
+
+def _close_record(out: Path, rec: dict, status: str, reason: str) -> None:
+    """Mark the run record of a run that stopped early, so that no record says "running"
+    after the process has gone; it still lists only the complete outputs."""
+    rec["status"] = status
+    rec["error"] = reason
+    try:
+        record.write(out / RECORD_NAME, rec)
+    except OSError:
+        pass  # the folder went away or filled up: the original error is what matters
 
 
 def _remove_work_dir(out: Path) -> None:

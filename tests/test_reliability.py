@@ -102,6 +102,7 @@ def test_sigint_stops_cleanly_without_temporary_files(long_case, tmp_path):
     _, err = proc.communicate(timeout=120)
     assert proc.returncode == 130, err
     assert "interrupted" in err and "Traceback" not in err
+    assert json.loads((out / "run_record.json").read_text())["status"] == "interrupted"
     leftovers = [p for p in out.rglob("*") if "partial" in p.name]
     assert not leftovers
     assert not (out / ".geothermmap-work").exists()
@@ -281,6 +282,10 @@ def test_strict_bounds_names_first_cell(tmp_path):
     _assert_error(result, "sand + clay above 100 %", "row 12, col 34")
     x, y = X0 + 34.5 * 100, Y0 - 12.5 * 100
     assert f"x={x:.3f}" in result.output and f"y={y:.3f}" in result.output
+    # the run record of the failed run says so (it must not stay "running")
+    rec = json.loads((tmp_path / "o" / "run_record.json").read_text())
+    assert rec["status"] == "failed" and "row 12, col 34" in rec["error"]
+    assert rec["outputs"] == {}
 
 
 def test_non_strict_bounds_are_clipped_and_counted(tmp_path):
