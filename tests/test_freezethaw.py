@@ -271,6 +271,23 @@ def test_spinup_reaches_periodic_state_and_multi_year_record():
     np.testing.assert_allclose(res3.frozen_days, res3.frozen_days_per_year.mean(axis=0), atol=1e-9)
 
 
+def test_frost_left_from_a_hard_winter_is_not_counted_again():
+    # A season's frost depth is the frost of that season's own winter: ground still
+    # below 0 degC at the start of a season (left from the winter before, wet soil thaws
+    # slowly) that thaws during the season must not count again. A season whose surface
+    # never falls below +4 degC has no frost at all (definition of frost penetration).
+    days = np.arange(365)
+    trough = np.cos(2 * np.pi * (days - 197) / 365.0 + np.pi)  # coldest mid-January
+    hard, frost_free = 5.0 + 20.0 * trough, 12.0 + 8.0 * trough
+    ts = np.concatenate([hard, frost_free, frost_free])[:, None]
+    res = ft.solve_freeze_thaw(ts, 1.2, 1.8, 2.6e6, 1.9e6, 0.40, [1.0, 2.0],
+                               bottom_heat_flux_w_m2=0.06, max_spinup_years=5)
+    fy = res.frost_depth_per_year_m[:, 0]
+    assert fy[0] > 1.5  # the hard winter freezes deep
+    np.testing.assert_array_equal(fy[1:], 0.0)
+    assert res.frost_depth_m[0] >= fy[0]  # over the record: the deepest frost seen
+
+
 def test_cells_are_independent_and_nan_cells_are_nodata():
     # "chunked equals unchunked": a cell's result does not depend on its neighbours
     rng = np.random.default_rng(3)

@@ -434,6 +434,14 @@ def _frost_depth_from_envelope(env, s, z, t_hi):  # pragma: no cover - compiled
 
 
 @njit(cache=True, nogil=True)
+def _reset_winter(s, thawed, tmn_w):  # pragma: no cover - compiled
+    """Start a new pass of slot s for the winter's own frost envelope."""
+    for i in range(thawed.shape[0]):
+        thawed[i, s] = False
+        tmn_w[i, s] = np.inf
+
+
+@njit(cache=True, nogil=True)
 def _thaw_depth_from_envelope(env, s, z, t_hi):  # pragma: no cover - compiled
     """Depth where the maximum envelope env[:, s] first drops below t_hi (NaN if never)."""
     nz = z.shape[0]
@@ -665,6 +673,12 @@ def _freeze_thaw_kernel(
     tmx = np.zeros((nz, nb))
     tmn_a = np.zeros((nz, nb))
     tmx_a = np.zeros((nz, nb))
+    # a winter's own frost: the minimum of each node after it has been at or above t_hi
+    # in this pass (thawed), so that frost left over from the previous winter is not
+    # counted again; a node below t_hi all pass is frozen through this winter
+    thawed = np.zeros((nz, nb), dtype=np.bool_)
+    tmn_w = np.zeros((nz, nb))
+    env_w = np.zeros((nz, nb))
     tsum = np.zeros((nz, nb))  # sum of T over the current pass (annual means)
     fdays = np.zeros((n_out, nb))
     tmin_c = np.zeros((n_out, nb))
@@ -713,6 +727,7 @@ def _freeze_thaw_kernel(
                 tmin_c,
                 tmax_c,
             )
+            _reset_winter(s, thawed, tmn_w)
         if n_active == 0:
             break
         # ---- one implicit time step for all slots
@@ -824,6 +839,8 @@ def _freeze_thaw_kernel(
                 tmn[i, s] = min(tmn[i, s], tt)
                 tmx[i, s] = max(tmx[i, s], tt)
                 tsum[i, s] += tt
+                thawed[i, s] |= tt >= t_hi
+                tmn_w[i, s] = min(tmn_w[i, s], tt if thawed[i, s] else np.inf)
         for j in range(n_out):
             ii = out_idx[j]
             ww = out_w[j]
@@ -872,11 +889,15 @@ def _freeze_thaw_kernel(
                         fdays[j, s] = 0.0
                         tmin_c[j, s] = np.inf
                         tmax_c[j, s] = -np.inf
+                    _reset_winter(s, thawed, tmn_w)
                     continue
             else:
                 year[s] += 1
             y = year[s] - 1  # index of the year just completed
-            frost_y[y, c] = _frost_depth_from_envelope(tmn, s, z, t_hi)
+            for i in range(nz):
+                env_w[i, s] = tmn_w[i, s] if thawed[i, s] else tmn[i, s]
+            frost_y[y, c] = _frost_depth_from_envelope(env_w, s, z, t_hi)
+            _reset_winter(s, thawed, tmn_w)
             th = _thaw_depth_from_envelope(tmx, s, z, t_hi)
             thaw_y[y, c] = th
             peren_y[y, c] = th == th
@@ -944,7 +965,11 @@ class FreezeThawResult(NamedTuple):
         part-year from the warm-season start with the analytic start). [1]
     spinup_converged : True where the January-1st profile repeated within the
         tolerance. [bool]
-    frost_depth_per_year_m : Frost depth of each year of the record, ``(Y, ...)``. [m]
+    frost_depth_per_year_m : Frost depth of each year of the record, ``(Y, ...)``:
+        that year's own frost. A node counts once it has been at or above ``T_f2``
+        in that year and then falls below it, or when it stays below ``T_f2`` all
+        year; ground still frozen from the winter before that thaws during the year
+        does not count again. [m]
     thaw_depth_per_year_m : Thaw depth of each year, ``(Y, ...)`` (NaN when that
         year had no node frozen all year). [m]
     frozen_days_per_year : Frozen days of each year and output depth,
