@@ -35,19 +35,40 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
             _err(f"error: {err}")
             sys.exit(EXIT_USER_ERROR)
         except KeyboardInterrupt:
-            _err("interrupted: stopped cleanly, no partial output left under a final name. "
-                 "Rerun with --resume to continue.")
+            _err("interrupted: stopped cleanly, no partial or temporary file left behind. "
+                 "Maps already complete are kept: `run --resume` reuses them and computes "
+                 "the rest.")
             sys.exit(EXIT_INTERRUPTED)
         except click.exceptions.Exit:
             raise
+        except BrokenPipeError:  # e.g. `geothermmap probe ... | head -1`: the reader left
+            _silence_stdout()
+            sys.exit(EXIT_USER_ERROR)
         except Exception as err:  # noqa: BLE001 - last line of defence for users
             if debug:
                 raise
+            if isinstance(err, OSError) and err.filename is not None:
+                # a file the user named could not be read or written (permissions, a
+                # folder in place of a file, a full disk...): theirs to fix, not a bug
+                _err(f"error: {err.filename}: {err.strerror or err}")
+                sys.exit(EXIT_USER_ERROR)
             _err(f"internal error: {type(err).__name__}: {err}\n"
                  "This is a bug in geothermmap or a library; rerun with --debug for details.")
             sys.exit(EXIT_INTERNAL_ERROR)
 
     return wrapper
+
+
+def _silence_stdout() -> None:
+    """Point stdout at /dev/null so that Python's flush at exit does not fail again
+    (the recipe of the Python documentation for SIGPIPE)."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
 
 
 def entry() -> None:

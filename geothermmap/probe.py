@@ -253,10 +253,25 @@ def write_plot(res: ProbeResult, path: Path) -> Path:
     ax.grid(alpha=0.3)
     fig.tight_layout()
     path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    fig.savefig(path)
-    plt.close(fig)
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        fig.savefig(path)
+    except OSError as err:
+        raise UserError(f"cannot write the plot {path}: {err.strerror or err}") from None
+    finally:
+        plt.close(fig)
     return path
+
+
+def _check_plot_path(path: Path) -> None:
+    """Refuse a plot file type matplotlib cannot write before any work is done."""
+    from matplotlib.backend_bases import FigureCanvasBase
+
+    kinds = FigureCanvasBase.get_supported_filetypes()
+    suffix = path.suffix.lower().lstrip(".")
+    if suffix not in kinds:
+        raise UserError(f"--plot {path}: unsupported picture type {path.suffix or '(none)'!r}; "
+                        f"use one of {', '.join('.' + k for k in sorted(kinds))}")
 
 
 @click.command()
@@ -273,6 +288,8 @@ def probe(recipe: Path, at: tuple[float, float], crs: str, plot: Path | None,
           as_csv: bool) -> None:
     """Inputs, soil properties and the temperature profile of RECIPE at one point."""
     x, y = at
+    if plot is not None:
+        _check_plot_path(plot)
     res = probe_point(recipe, x, y, crs)
     if as_csv:
         rows = depth_table(res)

@@ -53,6 +53,7 @@ Statistician, 50(4), 361-365. doi:10.1080/00031305.1996.10473566
 
 from __future__ import annotations
 
+import contextlib
 import difflib
 import json
 import math
@@ -762,18 +763,22 @@ def _tables(zone_names, label, maps, stats, shares, zone_cells, zone_area, perce
 
 def _write(zones_out, table, gpkg: Path) -> tuple[Path, Path]:
     """Write the GeoPackage and the CSV atomically (temporary names, then rename)."""
-    gpkg.parent.mkdir(parents=True, exist_ok=True)
     csv = gpkg.with_suffix(".csv")
     tmp_gpkg = gpkg.with_name(f".{gpkg.stem}.{os.getpid()}.partial.gpkg")
     tmp_csv = csv.with_name(f".{csv.stem}.{os.getpid()}.partial.csv")
     try:
+        gpkg.parent.mkdir(parents=True, exist_ok=True)
         zones_out.to_file(tmp_gpkg, layer=SUMMARY_LAYER, driver="GPKG")
         table.to_csv(tmp_csv, index=False, float_format="%.7g")
         os.replace(tmp_gpkg, gpkg)
         os.replace(tmp_csv, csv)
+    except Exception as err:  # OSError, or the GDAL/OGR error of the GeoPackage writer
+        reason = getattr(err, "strerror", None) or str(err).splitlines()[0]
+        raise UserError(f"cannot write the summary to {gpkg}: {reason}") from None
     finally:
-        tmp_gpkg.unlink(missing_ok=True)
-        tmp_csv.unlink(missing_ok=True)
+        for tmp in (tmp_gpkg, tmp_csv):
+            with contextlib.suppress(OSError):  # also when the folder never existed
+                tmp.unlink(missing_ok=True)
     return gpkg, csv
 
 

@@ -92,3 +92,27 @@ def test_probe_outside_grid_and_nodata_are_user_errors(case) -> None:
     assert "nodata in input(s) surface_temperature" in out.output
     out = runner.invoke(main, ["probe", str(recipe), "--at", "1", "2", "--crs", "EPSG:bogus"])
     assert out.exit_code == 1 and "not a CRS" in out.output
+
+
+def test_probe_unwritable_plot_and_closed_pipe_are_not_internal_errors(case, tmp_path) -> None:
+    recipe, _ = case
+    runner = CliRunner()
+    at = ["--at", str(X0 + 1500), str(Y0 - 2500), "--crs", UTM]
+    out = runner.invoke(main, ["probe", str(recipe), *at, "--plot", str(tmp_path / "p.xyz")])
+    assert out.exit_code == 1 and "unsupported picture type '.xyz'" in out.output
+    blocker = tmp_path / "a_file"
+    blocker.write_text("")
+    out = runner.invoke(main, ["probe", str(recipe), *at, "--plot",
+                               str(blocker / "p.png")])
+    assert out.exit_code == 1 and "cannot write the plot" in out.output
+    assert "internal error" not in out.output
+    # the reader of a pipe leaving early (`| head -1`) ends quietly, without a traceback
+    import subprocess
+    import sys
+
+    proc = subprocess.Popen([sys.executable, "-m", "geothermmap.cli", "probe", str(recipe),
+                             *at], stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+    proc.stdout.close()  # before the first line: every write of the probe meets EPIPE
+    err = proc.stderr.read().decode()
+    proc.wait(timeout=60)
+    assert "internal error" not in err and "Traceback" not in err, err

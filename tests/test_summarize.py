@@ -303,6 +303,14 @@ def test_cli_summarize(run_dir, tmp_path):
     assert out.exists() and out.with_suffix(".csv").exists()
     assert "p95" in pd.read_csv(out.with_suffix(".csv")).columns
     assert "zones" in result.output and "x.csv" in result.output
+    # a destination that cannot be written is the user's to fix: message and exit 1
+    blocker = tmp_path / "a_file"
+    blocker.write_text("")
+    for bad in (blocker / "s.gpkg", Path("/proc/s.gpkg")):
+        result = CliRunner().invoke(main, ["summarize", str(run_dir), "--zones", str(zpath),
+                                           "--by", "district", "--out", str(bad)])
+        assert result.exit_code == 1, result.output
+        assert "cannot write the summary" in result.output
 
 
 @pytest.mark.parametrize(
