@@ -74,9 +74,10 @@ from geothermmap.recipe import (
 
 WORK_DIR_NAME = ".geothermmap-work"
 RECORD_NAME = "run_record.json"
+#: What commands make from a run's maps in its folder (quicklooks, report, zone summaries).
+DERIVED_FILES = ("quicklook", "report.html", "summary.gpkg", "summary.csv")
 #: Names in an output folder that belong to the tool besides the maps themselves.
-TOOL_FILES = (RECORD_NAME, WORK_DIR_NAME, "quicklook", "report.html", "summary.gpkg",
-              "summary.csv")
+TOOL_FILES = (RECORD_NAME, WORK_DIR_NAME, *DERIVED_FILES)
 DEFAULT_CHUNK = 512
 
 #: Expected band counts per input (negative = any multiple of that number).
@@ -665,9 +666,13 @@ def run_recipe(
                 done[name] = entry  # kept (also when this run asks for fewer outputs)
     if previous:  # a fresh run replaces the earlier run's outputs
         kept = {e["file"] for e in done.values()}
+        replaced = 0
         for fname in set(previous.get("files", [])) | set(previous.get("pending_files", [])):
             if fname not in kept:
                 (out / fname).unlink(missing_ok=True)
+                replaced += 1
+        if replaced:  # pictures, report and summaries of the earlier maps would mislead
+            _remove_derived(out)
 
     work = out / WORK_DIR_NAME / run_key["full"]
     if (out / WORK_DIR_NAME).exists():  # blocks of another recipe or input are stale
@@ -756,6 +761,17 @@ def run_recipe(
     shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
     paths = {n: out / OUTPUTS[n].filename for n in plan.outputs}
     return RunResult(out, paths, out / RECORD_NAME, rec)
+
+
+def _remove_derived(out: Path) -> None:
+    """Remove what earlier commands made from the maps of this folder (quicklooks, the
+    report, zone summaries): they describe maps that are being replaced."""
+    for name in DERIVED_FILES:
+        path = out / name
+        if path.is_dir():
+            shutil.rmtree(path, ignore_errors=True)
+        else:
+            path.unlink(missing_ok=True)
 
 
 def _close_record(out: Path, rec: dict, status: str, reason: str) -> None:

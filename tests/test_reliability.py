@@ -131,6 +131,23 @@ def test_resume_skips_complete_outputs_and_changed_input_invalidates(tmp_path):
             first.record["outputs"]["damping_depth"]["bands"][0]["mean"], rel=1e-12)
 
 
+def test_new_run_removes_pictures_and_summaries_of_the_old_maps(tmp_path):
+    files = make_case(tmp_path, width=64, height=48)
+    out = tmp_path / "out"
+    run_recipe(write_recipe(tmp_path, files), out)
+    derived = [out / "report.html", out / "summary.gpkg", out / "summary.csv",
+               out / "quicklook" / "amplitude.png"]
+    for path in derived:  # stand-ins for what report, summarize and --quicklook write
+        path.parent.mkdir(exist_ok=True)
+        path.write_text("of the earlier maps")
+    again = run_recipe(write_recipe(tmp_path, files), out, resume=True)
+    assert "compute_s" not in again.record["timings"]  # every map kept: so are they
+    assert all(p.exists() for p in derived)
+    run_recipe(write_recipe(tmp_path, files, harmonics=1), out)  # maps replaced
+    assert not any(p.exists() for p in derived)
+    assert not (out / "quicklook").exists()
+
+
 def test_changed_recipe_invalidates_resume(tmp_path):
     files = make_case(tmp_path, width=64, height=48)
     out = tmp_path / "out"
