@@ -117,11 +117,6 @@ def output_band_count(name: str, config: KernelConfig) -> int:
     return 1
 
 
-def _first_cell(mask: np.ndarray, valid_index: np.ndarray, shape: tuple[int, int]) -> tuple:
-    flat = valid_index[np.argmax(mask)]
-    return tuple(int(v) for v in np.unravel_index(flat, shape))
-
-
 def apply_bounds(
     cells: dict[str, np.ndarray],
     strict: bool,
@@ -131,18 +126,21 @@ def apply_bounds(
     """Check inputs against physical bounds; clip, rescale or mask as documented.
 
     Returns the corrected cells, the counters, and a keep-mask (False = masked cell).
-    Under ``strict`` the first violation raises with its block-local cell.
+    Under ``strict`` nothing is corrected: every check runs on the values as given and
+    the offending cell first in raster order (of any check) raises, with its
+    block-local cell.
     """
     counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
     out = dict(cells)
+    offenders: list[tuple[int, str]] = []  # (first offending valid-cell position, what)
 
     def violation(name: str, mask: np.ndarray, what: str) -> int:
         n = int(np.count_nonzero(mask))
         counts[name] += n
-        if strict and n:
-            r, c = _first_cell(mask, valid_index, shape)
-            raise CellBoundsError(f"{what} (first at {{where}}); fix the input or set "
-                                  "strict: false to clip and count", r, c)
+        if strict:
+            if n:
+                offenders.append((int(np.argmax(mask)), what))
+            return 0  # strict: no corrections, the block raises below
         return n  # the corrections below only run where there is something to correct
 
     for key in ("sand", "clay", "water_content", "organic_matter", "quartz"):
@@ -172,8 +170,14 @@ def apply_bounds(
     phi = properties.porosity(out["bulk_density"], rho_s)
     wet = out["water_content"] > phi
     violation("water_above_porosity_clipped", wet & keep, "water content above porosity")
-    if wet.any():
+    if not strict and wet.any():  # masked cells too: the property models see numbers
         out["water_content"] = np.where(wet, phi, out["water_content"])
+    if offenders:
+        position, what = min(offenders)
+        flat = valid_index[position]
+        r, c = (int(v) for v in np.unravel_index(flat, shape))
+        raise CellBoundsError(f"{what} (first at {{where}}); fix the input or set "
+                              "strict: false to clip and count", r, c)
     return out, counts, keep
 
 

@@ -31,7 +31,7 @@ from rasterio.windows import Window
 
 from geothermmap import record
 from geothermmap.checks import check_units
-from geothermmap.errors import InputError, RecipeError, UserError
+from geothermmap.errors import InputError, PhysicalBoundsError, RecipeError, UserError
 from geothermmap.kernel import (
     BOUNDS_COUNTERS,
     CellBoundsError,
@@ -372,8 +372,17 @@ def keep_freed_memory() -> None:
     mallopt(m_trim_threshold, 512 * 2**20)
 
 
+#: Under ``strict``: the row of the first offending cell found so far, per run (the work
+#: folder), in this process. Blocks that start below it are not read: they cannot hold
+#: the offender first in raster order, which is the one reported.
+_STRICT_FIRST_ROW: dict[str, float] = {}
+_STRICT_LOCK = threading.Lock()
+
+
 def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
-    """Read, compute and write one block; return its partial statistics."""
+    """Read, compute and write one block; return its partial statistics (or, under
+    ``strict``, ``{"bounds_error": [row, col, message] or None}`` for a block that holds
+    an offending cell or was skipped after one)."""
     global _GDAL_READY
     if CANCELLED.is_set():
         return None
@@ -388,17 +397,20 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
         except ValueError:
             pass  # unreadable ledger: recompute the block
     window = Window(*task.window)
+    run_id = str(Path(task.path).parent)
+    if int(window.row_off) > _STRICT_FIRST_ROW.get(run_id, math.inf):
+        return {"bounds_error": None}  # cannot hold a cell before the offender already found
     inputs = _read_inputs(ctx, window)
     try:
         result = compute_block(inputs, ctx.config)
     except CellBoundsError as err:
         row = int(window.row_off) + err.row
         col = int(window.col_off) + err.col
+        with _STRICT_LOCK:
+            _STRICT_FIRST_ROW[run_id] = min(row, _STRICT_FIRST_ROW.get(run_id, math.inf))
         x, y = ctx.grid.xy(row, col)
-        raise CellBoundsError(
-            str(err).replace("{where}", f"row {row}, col {col}, x={x:.3f}, y={y:.3f} in "
-                                      f"{ctx.grid.crs.to_string()}"), row, col
-        ) from None
+        where = f"row {row}, col {col}, x={x:.3f}, y={y:.3f} in {ctx.grid.crs.to_string()}"
+        return {"bounds_error": [row, col, str(err).replace("{where}", where)]}
     stats: dict[str, Any] = {"outputs": {}, "counts": result.counts,
                              "valid_cells": result.valid_cells,
                              "nodata_cells": result.nodata_cells}
@@ -418,8 +430,9 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
 def run_overview(ctx: RunContext, task: OverviewTask, *blocks_done: Any) -> None:
     """Compress one overview tile of every output; ``blocks_done``: the block tasks it
     reads (their results, passed only so that the engines order the tasks)."""
-    if CANCELLED.is_set():
-        return
+    if CANCELLED.is_set() or any(isinstance(b, dict) and "bounds_error" in b
+                                 for b in blocks_done):
+        return  # a strict run that stops: some of its blocks were never written
     if is_tile_store(task.pyramid.overview_store(task.k, task.tr, task.tc)):
         return  # complete from an earlier attempt (--resume)
     write_overview(task.pyramid, task.k, task.tr, task.tc, ctx.codecs)
@@ -710,6 +723,7 @@ def run_recipe(
             parts = _execute(tasks, ctx, workers=workers, scheduler=scheduler, progress=tick,
                              overviews=overview_tasks(tasks, pyramid))
             timings["compute_s"] = time.perf_counter() - t1
+            _raise_first_bounds_error(parts)
             summary, counts = _combine(parts, plan.outputs)
             rec["counts"] = counts
             rec["counts"]["uncovered_input_fraction"] = {
@@ -761,6 +775,14 @@ def run_recipe(
     shutil.rmtree(out / WORK_DIR_NAME, ignore_errors=True)
     paths = {n: out / OUTPUTS[n].filename for n in plan.outputs}
     return RunResult(out, paths, out / RECORD_NAME, rec)
+
+
+def _raise_first_bounds_error(parts: list[dict[str, Any]]) -> None:
+    """Under ``strict``: raise for the offending cell first in raster order of the grid
+    (the same cell whatever order the blocks ran in)."""
+    found = [p["bounds_error"] for p in parts if p and p.get("bounds_error")]
+    if found:
+        raise PhysicalBoundsError(min(found)[2])
 
 
 def _remove_derived(out: Path) -> None:

@@ -305,6 +305,26 @@ def test_strict_bounds_names_first_cell(tmp_path):
     assert rec["outputs"] == {}
 
 
+def test_strict_reports_the_offender_first_in_raster_order(tmp_path):
+    # Offenders in several blocks and of two kinds: whatever order the blocks finish in,
+    # the one reported is the first cell in raster order (row by row) of the whole grid.
+    files = make_case(tmp_path)
+    tr = from_origin(X0, Y0, 100, 100)
+    sand = np.full((70, 90), 40.0)
+    # blocks of 64: (0, 0) rows 0-63 x cols 0-63, (0, 1) cols 64-89, (1, 0) rows 64-69
+    for r, c in ((66, 5), (13, 2), (30, 10), (12, 80)):
+        sand[r, c] = 95.0  # with clay 5..30 % these exceed 100 %
+    water = np.full((70, 90), 0.25)
+    water[12, 70] = 0.9  # above any porosity: the first offender, in the second block
+    files["sand"] = write_tif(tmp_path / "s.tif", sand, UTM, tr)
+    files["water_content"] = write_tif(tmp_path / "w.tif", water, UTM, tr)
+    recipe = write_recipe(tmp_path, files, strict=True, chunk=64)
+    for attempt in range(3):
+        result = CliRunner().invoke(main, ["run", str(recipe), "-o",
+                                           str(tmp_path / f"o{attempt}")])
+        _assert_error(result, "water content above porosity", "row 12, col 70")
+
+
 def test_non_strict_bounds_are_clipped_and_counted(tmp_path):
     files = make_case(tmp_path)
     tr = from_origin(X0, Y0, 100, 100)
