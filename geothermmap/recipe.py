@@ -337,9 +337,12 @@ class Recipe(_Strict):
         return path if path.is_absolute() else (Path(self.base_dir) / path).resolve()
 
     def resolved_dict(self) -> dict[str, Any]:
-        """The recipe as resolved: defaults filled in, paths absolute (for the run record)."""
+        """The recipe as resolved: defaults filled in (units too), paths absolute (for the
+        run record)."""
         d = self.model_dump(mode="json")
-        for spec in d["inputs"].values():
+        for key, spec in d["inputs"].items():
+            if spec.get("units") is None and key in INPUT_KINDS:
+                spec["units"] = INPUT_KINDS[key][2]  # the unit assumed, said explicitly
             if spec.get("path") is not None:
                 paths = spec["path"] if isinstance(spec["path"], list) else [spec["path"]]
                 resolved = [str(self.path_of(p)) for p in paths]

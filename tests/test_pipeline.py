@@ -162,6 +162,23 @@ def test_run_record(same_grid_case, tmp_path):
     assert set(rec["files"]) == {f"{n}.tif" for n in CORE}
 
 
+def test_run_record_names_the_units_assumed(tmp_path):
+    import yaml
+
+    files = make_case(tmp_path, width=40, height=30)
+    recipe = write_recipe(tmp_path, files)
+    data = yaml.safe_load(recipe.read_text())
+    for spec in data["inputs"].values():
+        spec.pop("units", None)  # every input on its default unit
+    data["inputs"]["bulk_density"]["value"] = 1.45
+    recipe.write_text(yaml.safe_dump(data))
+    rec = run_recipe(recipe, tmp_path / "out").record
+    units = {k: v["units"] for k, v in rec["recipe"]["inputs"].items()}
+    assert units == {"surface_temperature": "degC", "sand": "percent", "clay": "percent",
+                     "water_content": "m3 m-3", "bulk_density": "g cm-3",
+                     "organic_matter": "percent"}
+
+
 @pytest.mark.slow
 def test_threaded_equals_local_cluster(same_grid_case, tmp_path):
     recipe, _ = same_grid_case
