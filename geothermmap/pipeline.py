@@ -25,8 +25,7 @@ from typing import Any
 import numpy as np
 import rasterio
 from numba import njit
-from rasterio.crs import CRS
-from rasterio.errors import CRSError, RasterioError, RasterioIOError
+from rasterio.errors import RasterioError, RasterioIOError
 from rasterio.windows import Window
 
 from geothermmap import record
@@ -41,7 +40,7 @@ from geothermmap.kernel import (
 )
 from geothermmap.outputs import FROST_CAUTION, OUTPUTS
 from geothermmap.raster.cog import TileCodec, is_tile_store
-from geothermmap.raster.grid import TargetGrid
+from geothermmap.raster.grid import TargetGrid, crs_from_user_input
 from geothermmap.raster.inputs import (
     InputLayer,
     close_cached_handles,
@@ -168,11 +167,9 @@ class RunResult:
 
 def _target_grid(recipe: Recipe, first_temperature_path: Path | None) -> TargetGrid:
     if recipe.grid is not None:
-        import pyproj
-
-        try:  # pyproj first: it reports a bad string without GDAL's console message
-            crs = CRS.from_wkt(pyproj.CRS.from_user_input(recipe.grid.crs).to_wkt())
-        except (CRSError, pyproj.exceptions.CRSError) as err:
+        try:
+            crs = crs_from_user_input(recipe.grid.crs)
+        except ValueError as err:
             raise RecipeError(f"grid.crs: {recipe.grid.crs!r} is not a CRS ({err})") from None
         res = recipe.grid.resolution
         res_xy = (float(res), float(res)) if isinstance(res, int | float) else tuple(res)

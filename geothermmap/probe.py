@@ -24,8 +24,6 @@ from typing import Any
 
 import click
 import numpy as np
-from rasterio.crs import CRS
-from rasterio.errors import CRSError
 from rasterio.warp import transform as warp_transform
 from rasterio.windows import Window
 
@@ -35,6 +33,7 @@ from geothermmap.kernel import compute_block, output_band_count
 from geothermmap.outputs import FROST_CAUTION, OUTPUTS
 from geothermmap.physics import harmonics, periodic
 from geothermmap.physics.harmonics import MONTH_EDGES_DAYS, HarmonicFit
+from geothermmap.raster.grid import crs_from_user_input
 
 #: Outputs the depth table needs in addition to the recipe's.
 TABLE_OUTPUTS = ("t_mean", "amplitude", "t_min", "t_max", "phase_lag")
@@ -82,8 +81,8 @@ class ProbeResult:
 
 def _cell_of(plan: Any, x: float, y: float, crs: str) -> tuple[float, float, int, int]:
     try:
-        src = CRS.from_user_input(crs)
-    except (CRSError, ValueError) as err:
+        src = crs_from_user_input(crs)
+    except ValueError as err:
         raise UserError(f"--crs {crs!r} is not a CRS ({err})") from None
     grid = plan.grid
     if not (math.isfinite(x) and math.isfinite(y)):

@@ -92,6 +92,8 @@ def test_probe_outside_grid_and_nodata_are_user_errors(case) -> None:
     assert "nodata in input(s) surface_temperature" in out.output
     out = runner.invoke(main, ["probe", str(recipe), "--at", "1", "2", "--crs", "EPSG:bogus"])
     assert out.exit_code == 1 and "not a CRS" in out.output
+    out = runner.invoke(main, ["probe", str(recipe), "--at", "1", "2", "--crs", "EPSG:99999"])
+    assert out.exit_code == 1 and "not a CRS" in out.output and "ERROR 1" not in out.output
 
 
 def test_probe_unwritable_plot_and_closed_pipe_are_not_internal_errors(case, tmp_path) -> None:

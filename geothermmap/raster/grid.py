@@ -11,8 +11,23 @@ from dataclasses import dataclass
 
 from affine import Affine
 from rasterio.crs import CRS
+from rasterio.errors import CRSError
 from rasterio.windows import Window
 from rasterio.windows import bounds as window_bounds
+
+
+def crs_from_user_input(text: str) -> CRS:
+    """A CRS from what a user typed (``EPSG:32633``, WKT, PROJ string).
+
+    Parsed by pyproj first: a bad string then raises ``ValueError`` with pyproj's reason,
+    without the ``ERROR 1: PROJ ...`` line GDAL would print to the console.
+    """
+    import pyproj
+
+    try:
+        return CRS.from_wkt(pyproj.CRS.from_user_input(text).to_wkt())
+    except (pyproj.exceptions.CRSError, CRSError, TypeError) as err:
+        raise ValueError(str(err)) from None
 
 
 @dataclass(frozen=True)
