@@ -81,6 +81,14 @@ def test_raster_without_crs(tmp_path):
         dst.write(np.ones((1, 5, 5), np.float32))
     files["clay"] = path
     assert_user_error(invoke("check", str(write_recipe(tmp_path, files))), "no crs", "clay")
+    # a CRS but no geotransform: GDAL puts it at the identity, which would be a wrong map
+    path = tmp_path / "notransform.tif"
+    with rasterio.open(path, "w", driver="GTiff", width=5, height=5, count=1,
+                       dtype="float32", crs=UTM) as dst:
+        dst.write(np.ones((1, 5, 5), np.float32))
+    files["clay"] = path
+    assert_user_error(invoke("check", str(write_recipe(tmp_path, files))), "no geotransform",
+                      "clay")
 
 
 def test_non_overlapping_extent(tmp_path):

@@ -13,13 +13,14 @@ from __future__ import annotations
 import math
 import os
 import threading
+import warnings
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 import rasterio
 from rasterio.enums import Resampling
-from rasterio.errors import RasterioIOError
+from rasterio.errors import NotGeoreferencedWarning, RasterioIOError
 from rasterio.vrt import WarpedVRT
 from rasterio.warp import transform_bounds
 from rasterio.windows import Window
@@ -173,7 +174,9 @@ def _open_checked(path: Path, layer_name: str):
     if path.is_dir():
         raise InputError(f"input '{layer_name}': {path} is a folder, not a raster file")
     try:
-        ds = rasterio.open(path)
+        with warnings.catch_warnings(record=True) as caught:  # said below, in our words
+            warnings.simplefilter("always", NotGeoreferencedWarning)
+            ds = rasterio.open(path)
     except RasterioIOError as err:
         raise InputError(f"input '{layer_name}': {path} is not a readable raster ({err}). "
                          "Give a GeoTIFF or another GDAL raster.") from None
@@ -181,9 +184,11 @@ def _open_checked(path: Path, layer_name: str):
         ds.close()
         raise InputError(f"input '{layer_name}': {path} has no CRS; assign one (e.g. "
                          "`rio edit-info --crs EPSG:XXXX`) so it can be aligned")
-    if ds.transform.b != 0 or ds.transform.d != 0:
-        pass  # rotated rasters are handled by the warped path
-    return ds
+    if any(issubclass(w.category, NotGeoreferencedWarning) for w in caught):
+        ds.close()  # a CRS but no geotransform: the cells have no place on the ground
+        raise InputError(f"input '{layer_name}': {path} has a CRS but no geotransform (pixel "
+                         "size and origin); assign one (e.g. `rio edit-info --transform`)")
+    return ds  # rotated rasters are handled by the warped path
 
 
 def _same_grid(ds, grid: TargetGrid) -> tuple[bool, int, int]:
