@@ -135,11 +135,18 @@ def _summarise(result: Any, quiet: bool) -> None:
     rec = result.record
     click.echo(f"wrote {len(result.outputs)} maps to {result.output_dir}")
     for name, path in result.outputs.items():
-        bands = [b for b in rec["outputs"][name]["bands"] if b.get("count")]
-        rng = ("no valid cells" if not bands else
+        all_bands = rec["outputs"][name]["bands"]
+        bands = [b for b in all_bands if b.get("count")]
+        rng = ("no values" if not bands else
                f"{min(b['min'] for b in bands):.4g} .. {max(b['max'] for b in bands):.4g}")
-        n_bands = len(rec["outputs"][name]["bands"])
-        scope = f" (all {n_bands} bands)" if n_bands > 1 else ""
+        coded = {code: sum(b.get(f"{code}_cells", 0) for b in all_bands)
+                 for _, code in OUTPUTS[name].codes}
+        coded_text = ", ".join(f"{n} {code.replace('_', ' ')}" for code, n in coded.items() if n)
+        if coded_text:  # code values are not depths or days: counted apart
+            rng = f"{rng}; cells coded {coded_text}" if bands else f"cells coded {coded_text}"
+        elif not bands:
+            rng = "no valid cells"
+        scope = f" (all {len(all_bands)} bands)" if len(all_bands) > 1 else ""
         click.echo(f"  {path.name:34s} {OUTPUTS[name].units:12s} {rng}{scope}")
     counts = rec.get("counts", {})
     click.echo(f"cells: {counts.get('valid_cells', 0)} valid, "

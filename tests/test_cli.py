@@ -162,3 +162,20 @@ def test_demo_recipe_validates():
     root = Path(__file__).resolve().parents[1]
     result = invoke("check", str(root / "recipes" / "demo.yaml"))
     assert result.exit_code == 0, result.output
+
+
+def test_summary_counts_coded_cells_apart(capsys):
+    # a frost map whose cells are all "frozen at depth" (code -1) has no depth values;
+    # the summary says how many cells carry the code instead of "no valid cells"
+    from types import SimpleNamespace
+
+    from geothermmap.cli import _summarise
+
+    band = {"count": 0, "min": None, "max": None, "frozen_at_depth_cells": 12}
+    result = SimpleNamespace(
+        record={"outputs": {"frost_depth": {"bands": [band]}}, "counts": {}},
+        outputs={"frost_depth": Path("frost_depth.tif")}, output_dir=Path("."),
+        record_path=Path("run_record.json"))
+    _summarise(result, quiet=False)
+    line = next(s for s in capsys.readouterr().out.splitlines() if "frost_depth.tif" in s)
+    assert "cells coded 12 frozen at depth" in line and "no valid" not in line
