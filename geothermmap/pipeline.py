@@ -854,7 +854,7 @@ def band_descriptions(plan: RunPlan, name: str) -> list[tuple[str, dict[str, str
         n = int(plan.config.extras.get("n_years", 1))
         return [(f"winter {i + 1} (its middle in year {i + 1} of the record)",
                  {"winter": str(i + 1)}) for i in range(n)]
-    return [(info.description.split(".")[0][:80], {})]
+    return [(info.description.split(".")[0], {})]
 
 
 def output_tags(plan: RunPlan, name: str) -> dict[str, str]:
