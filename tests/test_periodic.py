@@ -477,18 +477,34 @@ def test_same_answer_for_scalar_ndarray_and_dask():
     assert isinstance(lazy, da.Array)
     np.testing.assert_allclose(lazy.compute(), full, rtol=0, atol=1e-12)
 
-    # the compiled functions take anything np.asarray accepts (a dask array is computed)
+    # the compiled functions stay lazy on dask input, chunk by chunk of the cells
     stats = depth_statistics(fit, ref, [0.5, 2.0])
     stats_dask = depth_statistics(lazy_fit, da.from_array(ref, chunks=1), [0.5, 2.0])
     for key in stats:
-        np.testing.assert_array_equal(stats_dask[key], stats[key])
+        assert isinstance(stats_dask[key], da.Array)
+        np.testing.assert_array_equal(stats_dask[key].compute(), stats[key])
+    closed = depth_statistics(lazy_fit, da.from_array(ref, chunks=1), [0.5], extremes=False)
+    assert set(closed) == {"t_mean", "amplitude", "phase_lag"}
+    np.testing.assert_array_equal(closed["amplitude"].compute(), stats["amplitude"][:1])
+    # xarray in, xarray out: cell coordinates kept, a depth coordinate added
+    import xarray as xr
+
+    coords = {"y": [10.0, 20.0], "x": [1.0, 2.0]}
+    d_xr = xr.DataArray(ref, dims=("y", "x"), coords=coords)
+    stats_xr = depth_statistics(fit, d_xr, [0.5, 2.0])
+    assert stats_xr["t_min"].dims == ("depth", "y", "x")
+    assert list(stats_xr["t_min"]["depth"].values) == [0.5, 2.0]
+    np.testing.assert_array_equal(stats_xr["t_min"].values, stats["t_min"])
+    frost_xr = frost_depth_conduction(fit, d_xr.chunk({"x": 1}))
+    assert frost_xr.dims == ("y", "x") and isinstance(frost_xr.data, da.Array)
+    np.testing.assert_array_equal(frost_xr.values, frost_depth_conduction(fit, ref))
     cell = HarmonicFit(float(fit.mean[1, 0]), fit.cos_coef[:, 1, 0], fit.sin_coef[:, 1, 0])
     stats_cell = depth_statistics(cell, float(ref[1, 0]), [0.5, 2.0])
     for key in stats:
         np.testing.assert_allclose(stats_cell[key], stats[key][:, 1, 0], rtol=0, atol=1e-12)
-    np.testing.assert_array_equal(
-        frost_depth_conduction(lazy_fit, da.from_array(ref)), frost_depth_conduction(fit, ref)
-    )
+    lazy_frost = frost_depth_conduction(lazy_fit, da.from_array(ref))
+    assert isinstance(lazy_frost, da.Array)
+    np.testing.assert_array_equal(lazy_frost.compute(), frost_depth_conduction(fit, ref))
 
 
 def test_chunked_equals_unchunked_and_point_equals_map_cell():
