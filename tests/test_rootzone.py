@@ -384,3 +384,36 @@ def test_run_recipe_root_zone_and_thresholds(tmp_path):
     assert maps["degree_days"][0, row, col] == pytest.approx(ref_dd, rel=1e-5)
     # nodata hole of make_case stays nodata
     assert np.isnan(maps["days_above"][:, 11, 22]).all()
+
+
+def test_dask_stays_lazy_and_xarray_keeps_coordinates():
+    # the same numbers as numpy: the same kernels run on each chunk of cells (the lazy
+    # harmonic fit itself may round differently in the last bit: 1e-12 K, 1e-9 day)
+    import dask.array as da
+    import xarray as xr
+
+    rng = np.random.default_rng(5)
+    monthly = rng.normal(6.0, 9.0, (12, 4, 6))
+    fit = harmonics.fit_harmonics(monthly, 2)
+    d = rng.uniform(1.5, 3.0, (4, 6))
+    thr = rng.uniform(3.0, 8.0, (4, 6))
+    lazy_fit = harmonics.fit_harmonics(da.from_array(monthly, chunks=(12, 2, 3)), 2)
+    lazy_d = da.from_array(d, chunks=(2, 3))
+    calls = [
+        (rootzone.root_zone_statistics, (0.1, 0.5)),
+        (rootzone.threshold_crossings, (0.5, thr)),
+        (rootzone.degree_days, (0.5, thr)),
+    ]
+    coords = {"y": np.arange(4.0), "x": np.arange(6.0) * 30}
+    for fn, args in calls:
+        ref = fn(fit, d, *args)
+        lazy = fn(lazy_fit, lazy_d, args[0], da.from_array(args[1]) if np.ndim(args[1])
+                  else args[1])
+        on_xr = fn(fit, xr.DataArray(d, dims=("y", "x"), coords=coords), *args)
+        pairs = ([(ref[k], lazy[k], on_xr[k]) for k in ref] if isinstance(ref, dict)
+                 else [(ref, lazy, on_xr)])
+        for r, lz, x in pairs:
+            assert isinstance(lz, da.Array)
+            np.testing.assert_allclose(lz.compute(), r, rtol=0, atol=1e-9)
+            assert x.dims == ("y", "x") and list(x["x"].values) == list(coords["x"])
+            np.testing.assert_array_equal(x.values, r)

@@ -38,6 +38,7 @@ import numpy as np
 from numba import njit
 from numpy.typing import ArrayLike, NDArray
 
+from geothermmap.physics._cells import Layout, cellwise
 from geothermmap.physics.harmonics import OMEGA_RAD_DAY, YEAR_DAYS, HarmonicFit
 
 SECONDS_PER_DAY = 86400.0
@@ -1167,66 +1168,6 @@ def _frost_kernel(mean, cos_coef, sin_coef, dd, m, out):
 # --------------------------------------------------------------------------------------
 
 
-def _xarray_template(*values):
-    """The first xarray input whose dims name the cells, or None (xarray not imported
-    unless the caller passed xarray objects)."""
-    for v in values:
-        if type(v).__module__.startswith("xarray"):
-            return v
-    return None
-
-
-def _is_lazy(*values) -> bool:
-    return any(type(v).__module__.startswith("dask") for v in values)
-
-
-def _blockwise_cells(block_fn, fit: HarmonicFit, damping_depth_m, leading: tuple):
-    """Apply ``block_fn(mean, cos_coef, sin_coef, damping_depth)`` (numpy blocks in,
-    ndarray of shape ``leading + cells`` out) lazily over the chunks of the cells of dask
-    inputs: the compiled kernels need whole arrays, this hands them one chunk at a time."""
-    import dask.array as da
-
-    mean, cos_c, sin_c, dd = (da.asarray(v) for v in (fit.mean, fit.cos_coef, fit.sin_coef,
-                                                       damping_depth_m))
-    h = cos_c.shape[0]
-    shape = np.broadcast_shapes(mean.shape, cos_c.shape[1:], sin_c.shape[1:], dd.shape)
-    mean = da.broadcast_to(mean, shape)
-    chunks = mean.chunks
-    dd = da.broadcast_to(dd, shape).rechunk(chunks)
-    cos_c = da.broadcast_to(cos_c, (h, *shape)).rechunk(((h,), *chunks))
-    sin_c = da.broadcast_to(sin_c, (h, *shape)).rechunk(((h,), *chunks))
-    cells = tuple(f"c{i}" for i in range(len(shape)))
-    lead = tuple(f"l{i}" for i in range(len(leading)))
-    return da.blockwise(block_fn, lead + cells, mean, cells, cos_c, ("h", *cells),
-                        sin_c, ("h", *cells), dd, cells, dtype=np.float64, concatenate=True,
-                        new_axes=dict(zip(lead, leading, strict=True)))
-
-
-def _unwrap_xarray(fit: HarmonicFit, damping_depth_m):
-    """The fit and damping depth with xarray objects replaced by their data (numpy or
-    dask), and the xarray template of the cells (or None)."""
-    template = _xarray_template(damping_depth_m, fit.mean)
-    if template is None and _xarray_template(fit.cos_coef, fit.sin_coef) is None:
-        return fit, damping_depth_m, None
-
-    def data(v):
-        return v.data if type(v).__module__.startswith("xarray") else v
-
-    plain = HarmonicFit(data(fit.mean), data(fit.cos_coef), data(fit.sin_coef))
-    return plain, data(damping_depth_m), template
-
-
-def _as_xarray(values, template, depths=None):
-    """Wrap a result (cells, or depth x cells) like the xarray input it came from."""
-    import xarray as xr
-
-    if depths is None:
-        return xr.DataArray(values, dims=template.dims, coords=template.coords)
-    return xr.DataArray(values, dims=("depth", *template.dims),
-                        coords={**template.coords, "depth": ("depth", depths)},
-                        attrs={"depth_units": "m"})
-
-
 def _check_depths(depth_m: ArrayLike) -> None:
     if np.any(np.asarray(depth_m) < 0):
         raise ValueError("depths must be >= 0 m (positive downward from the surface)")
@@ -1255,6 +1196,19 @@ def _flatten_cells(fit: HarmonicFit, damping_depth_m: ArrayLike):
 _STAT_KEYS = ("t_mean", "amplitude", "phase_lag", "t_min", "t_max", "doy_min", "doy_max")
 
 
+def _stats_layout(depths_m: ArrayLike, extremes: bool = True) -> Layout:
+    depths = np.atleast_1d(np.asarray(depths_m, dtype=np.float64))
+    _check_depths(depths)
+    return Layout(_STAT_KEYS if extremes else _STAT_KEYS[:3], (("depth", depths),))
+
+
+def _frost_layout(max_depth_m: float | None = None) -> Layout:
+    if max_depth_m is not None and not max_depth_m > 0:
+        raise ValueError(f"max_depth_m must be positive, got {max_depth_m!r}")
+    return Layout(None)
+
+
+@cellwise(_stats_layout)
 def depth_statistics(
     fit: HarmonicFit, damping_depth_m: ArrayLike, depths_m: ArrayLike, extremes: bool = True
 ) -> dict[str, NDArray[np.float64]]:
@@ -1323,18 +1277,6 @@ def depth_statistics(
     if depths.ndim != 1:
         raise ValueError(f"depths_m must be a scalar or 1-D, got shape {depths.shape}")
     _check_depths(depths)
-    fit, damping_depth_m, template = _unwrap_xarray(fit, damping_depth_m)
-    if template is not None:
-        out = depth_statistics(fit, damping_depth_m, depths, extremes)
-        return {key: _as_xarray(val, template, depths) for key, val in out.items()}
-    keys = _STAT_KEYS if extremes else _STAT_KEYS[:3]
-    if _is_lazy(*fit, damping_depth_m):
-        def block(mean, cos_coef, sin_coef, dd):
-            out = depth_statistics(HarmonicFit(mean, cos_coef, sin_coef), dd, depths, extremes)
-            return np.stack([out[key] for key in keys])
-
-        stacked = _blockwise_cells(block, fit, damping_depth_m, (len(keys), depths.size))
-        return {key: stacked[i] for i, key in enumerate(keys)}
     shape, (mean, cos_coef, sin_coef, dd) = _flatten_cells(fit, damping_depth_m)
     n_cells = mean.shape[0]
     n_depths = depths.shape[0]
@@ -1365,6 +1307,7 @@ def depth_statistics(
     return {key: val.reshape((n_depths,) + shape) for key, val in out.items()}
 
 
+@cellwise(_frost_layout)
 def frost_depth_conduction(
     fit: HarmonicFit, damping_depth_m: ArrayLike, max_depth_m: float | None = None
 ) -> NDArray[np.float64]:
@@ -1415,16 +1358,7 @@ def frost_depth_conduction(
     Carslaw, H. S., & Jaeger, J. C. (1959). Conduction of Heat in Solids (2nd ed.).
     Oxford: Clarendon Press. Section 2.6.
     """
-    if max_depth_m is not None and not max_depth_m > 0:
-        raise ValueError(f"max_depth_m must be positive, got {max_depth_m!r}")
-    fit, damping_depth_m, template = _unwrap_xarray(fit, damping_depth_m)
-    if template is not None:
-        return _as_xarray(frost_depth_conduction(fit, damping_depth_m, max_depth_m), template)
-    if _is_lazy(*fit, damping_depth_m):
-        def block(mean, cos_coef, sin_coef, dd):
-            return frost_depth_conduction(HarmonicFit(mean, cos_coef, sin_coef), dd, max_depth_m)
-
-        return _blockwise_cells(block, fit, damping_depth_m, ())
+    _frost_layout(max_depth_m)
     shape, (mean, cos_coef, sin_coef, dd) = _flatten_cells(fit, damping_depth_m)
     out = np.empty(mean.shape[0])
     _frost_kernel(mean, cos_coef, sin_coef, dd, _n_samples(cos_coef.shape[0]), out)

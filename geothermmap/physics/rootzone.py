@@ -17,6 +17,8 @@ at a depth, or averaged over a depth range) and then reduced over the year:
 
 Times are days since January 1st 00:00; day-of-year outputs are ``1 + t``.
 Cells are on the trailing axes (any shape); harmonics on axis 0 of the coefficients.
+The three reductions take numpy, dask (kept lazy, chunk by chunk of the cells) and
+xarray (results keep the cell coordinates) alike.
 
 References
 ----------
@@ -31,6 +33,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from geothermmap.physics import periodic
+from geothermmap.physics._cells import Layout, cellwise
 from geothermmap.physics.harmonics import OMEGA_RAD_DAY, YEAR_DAYS, HarmonicFit
 
 #: Code of ``warming_doy`` and ``cooling_doy`` where the temperature never rises above the
@@ -237,6 +240,7 @@ def root_zone_mean_temperature(
     return out
 
 
+@cellwise(lambda top_m, bottom_m: Layout(("t_mean", "t_min", "t_max")))
 def root_zone_statistics(
     fit: HarmonicFit, damping_depth_m: ArrayLike, top_m: float, bottom_m: float
 ) -> dict[str, NDArray[np.float64]]:
@@ -348,6 +352,8 @@ def _crossings(mean, a, b, thr):
     return cells[up], root[up], cells[~up], root[~up], above0 & valid, valid
 
 
+@cellwise(lambda depth_m, threshold_degC: Layout(
+    ("warming_doy", "cooling_doy", "days_above"), cell_args=(1,)))
 def threshold_crossings(
     fit: HarmonicFit, damping_depth_m: ArrayLike, depth_m: float, threshold_degC: ArrayLike
 ) -> dict[str, NDArray[np.float64]]:
@@ -430,6 +436,7 @@ def _antiderivative(mean, a, b, base, cells, t):
     return out
 
 
+@cellwise(lambda depth_m, base_degC: Layout(None, cell_args=(1,)))
 def degree_days(
     fit: HarmonicFit, damping_depth_m: ArrayLike, depth_m: float, base_degC: ArrayLike
 ) -> NDArray[np.float64]:
