@@ -328,3 +328,28 @@ def test_closed_forms_monotone(fi, k, theta, mat, days):
     b3 = fr.berggren_frost_depth(fi * 1.2, days, mat, k, k, c, c, theta)
     assert b2 < b1 < b3
     assert b1 <= s1 * (1 + 1e-12)
+
+
+def test_dask_stays_lazy_and_xarray_keeps_dims():
+    # the value-by-value functions give the numpy numbers on dask (lazy) and xarray input
+    import dask.array as da
+    import xarray as xr
+
+    fi = np.array([[0.0, 300.0, 900.0], [1500.0, np.nan, 50.0]])
+    kf = np.full(fi.shape, 1.8)
+    water = np.array([[0.1, 0.2, 0.3], [0.0, 0.25, 0.4]])
+    calls = [
+        (fr.stefan_frost_depth, (fi, kf, water), {}),
+        (fr.berggren_frost_depth, (fi, 120.0, 3.0, kf, 1.2, 1.9e6, 2.6e6, water), {}),
+        (fr.frost_class, (np.array([[0.0, 0.3, 1.2], [2.5, np.nan, 0.7]]),),
+         {"thresholds_m": [0.5, 1.0, 2.0]}),
+    ]
+    for fn, args, kw in calls:
+        ref = fn(*args, **kw)
+        lazy = fn(*(da.from_array(a, chunks=(1, 2)) if np.ndim(a) else a for a in args), **kw)
+        assert isinstance(lazy, da.Array)
+        np.testing.assert_array_equal(lazy.compute(), ref)
+        on_xr = fn(*(xr.DataArray(a, dims=("y", "x")) if np.ndim(a) else a for a in args),
+                   **kw)
+        assert isinstance(on_xr, xr.DataArray) and on_xr.dims == ("y", "x")
+        np.testing.assert_array_equal(on_xr.values, ref)

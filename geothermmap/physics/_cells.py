@@ -10,6 +10,7 @@ formulas stay in the modules that use it; this module only moves arrays around.
 from __future__ import annotations
 
 import functools
+import inspect
 from collections.abc import Callable
 from typing import Any, NamedTuple
 
@@ -117,3 +118,45 @@ def _with_xarray(wrapper, layout, fit, damping_depth_m, args, kwargs):
         return xr.DataArray(values, dims=dims, coords=coords)
 
     return wrap(out) if spec.keys is None else {k: wrap(v) for k, v in out.items()}
+
+
+def elementwise(*cell_params: str, dtype: Any = np.float64) -> Callable:
+    """Decorator: dask and xarray inputs for a numpy function that works value by value.
+
+    ``cell_params``: the parameters that are arrays of values (default: all); the others
+    (e.g. a list of thresholds) are passed unchanged. Dask arrays are broadcast together
+    and the function runs block by block (lazy); xarray objects go through
+    ``xarray.apply_ufunc`` (dims and coordinates kept, dask inside kept lazy).
+    """
+
+    def decorate(fn: Callable) -> Callable:
+        sig = inspect.signature(fn)
+        names = cell_params or tuple(sig.parameters)
+
+        @functools.wraps(fn)
+        def wrapper(*args: Any, **kwargs: Any):
+            bound = sig.bind(*args, **kwargs)
+            cells = {k: v for k, v in bound.arguments.items() if k in names and v is not None}
+            kinds = {_kind(v) for v in cells.values()}
+            if not kinds & {"xarray", "dask"}:
+                return fn(*args, **kwargs)
+            keys = list(cells)
+
+            def call(*values: Any):
+                return wrapper(**{**bound.arguments, **dict(zip(keys, values, strict=True))})
+
+            if "xarray" in kinds:
+                import xarray as xr
+
+                return xr.apply_ufunc(call, *cells.values(), dask="allowed")
+            import dask.array as da
+
+            arrays = da.broadcast_arrays(*(da.asarray(v) for v in cells.values()))
+            lazy = next(a for a, v in zip(arrays, cells.values(), strict=True)
+                        if _kind(v) == "dask")  # its chunks, not those of a broadcast scalar
+            arrays = [a.rechunk(lazy.chunks) for a in arrays]
+            return da.map_blocks(call, *arrays, dtype=dtype)
+
+        return wrapper
+
+    return decorate

@@ -31,6 +31,7 @@ from collections.abc import Sequence
 import numpy as np
 
 from geothermmap.physics import freezethaw
+from geothermmap.physics._cells import elementwise
 from geothermmap.physics.freezethaw import LATENT_HEAT_FUSION_J_KG, WATER_DENSITY_KG_M3
 from geothermmap.physics.harmonics import HarmonicFit
 
@@ -70,6 +71,7 @@ N_FACTORS: dict[str, tuple[float, float]] = {
 }
 
 
+@elementwise()
 def surface_temperature_n_factor(
     air_temperature_degC: np.ndarray,
     n_factor_freezing: np.ndarray | float = 0.7,
@@ -158,6 +160,7 @@ def ground_surface_harmonics(
     return HarmonicFit(out_mean, out_cos, out_sin)
 
 
+@elementwise()
 def latent_heat_volumetric(water_m3m3: np.ndarray | float) -> np.ndarray:
     """Latent heat of the pore water per unit volume of ground ``rho_w L_f theta``.
 
@@ -234,6 +237,7 @@ def design_freezing_index(
         return np.sum(np.where(used, fi, 0.0), axis=0) / used.sum(axis=0), used
 
 
+@elementwise()
 def stefan_frost_depth(
     freezing_index_degC_day: np.ndarray | float,
     conductivity_frozen_w_mk: np.ndarray | float,
@@ -267,6 +271,7 @@ def stefan_frost_depth(
     return np.where(num == 0.0, 0.0, x)
 
 
+@elementwise("thermal_ratio", "fusion_parameter")
 def neumann_front_coefficient(
     thermal_ratio: np.ndarray | float,
     fusion_parameter: np.ndarray | float,
@@ -314,6 +319,7 @@ def neumann_front_coefficient(
     return np.where(np.isnan(inv_mu), np.nan, xi)
 
 
+@elementwise()
 def berggren_coefficient(
     thermal_ratio: np.ndarray | float, fusion_parameter: np.ndarray | float
 ) -> np.ndarray:
@@ -345,6 +351,7 @@ def berggren_coefficient(
     return xi * np.sqrt(2.0 / mu)
 
 
+@elementwise()
 def berggren_frost_depth(
     freezing_index_degC_day: np.ndarray | float,
     freezing_days: np.ndarray | float,
@@ -400,6 +407,7 @@ def berggren_frost_depth(
 _CLASS_COLOURS = ("#f2f0e6", "#c6dbef", "#9ecae1", "#6baed6", "#3182bd", "#08519c", "#54278f")
 
 
+@elementwise("frost_depth_m", "frozen_at_depth", dtype=np.uint8)
 def frost_class(
     frost_depth_m: np.ndarray,
     thresholds_m: Sequence[float] = (0.5, 1.0, 1.5, 2.0),
