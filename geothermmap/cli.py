@@ -230,10 +230,14 @@ def demo(output: Path, quicklook: bool, workers: int | None, scheduler: str | No
 @click.argument("recipe", type=click.Path(path_type=Path))
 @handle_errors
 def check(recipe: Path) -> None:
-    """Validate RECIPE and its inputs without computing anything (exit 0 ok, 1 not ok)."""
-    from geothermmap.pipeline import plan_run
+    """Validate RECIPE and its inputs without running the model (exit 0 ok, 1 not ok).
+
+    Under strict: true every cell is read and checked against the physical bounds."""
+    from geothermmap.pipeline import plan_run, scan_strict_bounds
 
     plan = plan_run(recipe)
+    if plan.config.strict:  # every cell, as the run would: under strict a bound is an error
+        scan_strict_bounds(plan)
     g = plan.grid
     click.echo(f"recipe {recipe}: ok")
     click.echo(f"grid: {g.width} x {g.height} cells, {g.crs.to_string()}, "

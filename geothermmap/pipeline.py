@@ -401,13 +401,10 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
     try:
         result = compute_block(inputs, ctx.config)
     except CellBoundsError as err:
-        row = int(window.row_off) + err.row
-        col = int(window.col_off) + err.col
+        found = _bounds_error_on_grid(ctx.grid, window, err)
         with _STRICT_LOCK:
-            _STRICT_FIRST_ROW[run_id] = min(row, _STRICT_FIRST_ROW.get(run_id, math.inf))
-        x, y = ctx.grid.xy(row, col)
-        where = f"row {row}, col {col}, x={x:.3f}, y={y:.3f} in {ctx.grid.crs.to_string()}"
-        return {"bounds_error": [row, col, str(err).replace("{where}", where)]}
+            _STRICT_FIRST_ROW[run_id] = min(found[0], _STRICT_FIRST_ROW.get(run_id, math.inf))
+        return {"bounds_error": found}
     stats: dict[str, Any] = {"outputs": {}, "counts": result.counts,
                              "valid_cells": result.valid_cells,
                              "nodata_cells": result.nodata_cells}
@@ -422,6 +419,36 @@ def run_block(ctx: RunContext, task: BlockTask) -> dict[str, Any] | None:
     os.replace(stats_tmp, stats_path)
     write_block(Path(task.path), result.outputs, ctx.codecs, window, ctx.overview_levels)
     return stats
+
+
+def _bounds_error_on_grid(grid: TargetGrid, window: Window, err: CellBoundsError) -> list:
+    """[row, col, message] of a block's strict-bounds error, in grid rows and columns
+    and map coordinates."""
+    row = int(window.row_off) + err.row
+    col = int(window.col_off) + err.col
+    x, y = grid.xy(row, col)
+    where = f"row {row}, col {col}, x={x:.3f}, y={y:.3f} in {grid.crs.to_string()}"
+    return [row, col, str(err).replace("{where}", where)]
+
+
+def scan_strict_bounds(plan: RunPlan) -> None:
+    """For ``check`` under ``strict``: read every block once (no model beyond the soil
+    properties) and raise as ``run`` would for the offending cell first in raster order.
+    Blocks after the block row of the first offender are not read."""
+    import dataclasses
+
+    ctx = plan.context
+    config = dataclasses.replace(plan.config, outputs=("damping_depth",))
+    found: list[list] = []
+    for _, _, window in plan.blocks():
+        if found and int(window.row_off) > found[0][0]:
+            break
+        try:
+            compute_block(_read_inputs(ctx, window), config)
+        except CellBoundsError as err:
+            found.append(_bounds_error_on_grid(plan.grid, window, err))
+    if found:
+        raise PhysicalBoundsError(min(found)[2])
 
 
 def run_overview(ctx: RunContext, task: OverviewTask, *blocks_done: Any) -> None:

@@ -323,6 +323,8 @@ def test_strict_reports_the_offender_first_in_raster_order(tmp_path):
         result = CliRunner().invoke(main, ["run", str(recipe), "-o",
                                            str(tmp_path / f"o{attempt}")])
         _assert_error(result, "water content above porosity", "row 12, col 70")
+    # check reads every cell under strict and names the same cell
+    _assert_error(_check(recipe), "water content above porosity", "row 12, col 70")
 
 
 def test_non_strict_bounds_are_clipped_and_counted(tmp_path):
