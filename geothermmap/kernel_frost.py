@@ -142,6 +142,7 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
     q = np.full(n, s["q"])
 
     daily, dt = _daily_forcing(state, s["kind"])
+    mat = np.mean(daily, axis=0)  # of the record as given (the shift below repeats months)
     if n_years > 1:
         daily = _season_shift(daily, state.monthly)
     fi, fdays = frost.freezing_index_per_winter(daily, 365, dt)  # (W, n)
@@ -201,7 +202,6 @@ def compute(state: CellState, wanted: set[str]) -> dict[str, np.ndarray]:
     design_days = np.sum(np.where(used, fdays, 0.0), axis=0) / k_used
     design_depth = np.sum(np.where(used, frost_y, 0.0), axis=0) / k_used
     design_depth[bad] = np.nan
-    mat = np.mean(daily, axis=0)
     stefan = frost.stefan_frost_depth(design_fi, kf, water)
     berggren = frost.berggren_frost_depth(design_fi, design_days, mat, kf, ku, cf, cu, water)
     class_depth = design_depth if n_years > 1 else frost_max
