@@ -41,22 +41,46 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
             sys.exit(EXIT_INTERRUPTED)
         except click.exceptions.Exit:
             raise
-        except BrokenPipeError:  # e.g. `geothermmap probe ... | head -1`: the reader left
-            _silence_stdout()
-            sys.exit(EXIT_USER_ERROR)
         except Exception as err:  # noqa: BLE001 - last line of defence for users
             if debug:
                 raise
-            if isinstance(err, OSError) and err.filename is not None:
+            if isinstance(err, BrokenPipeError) and _stdout_closed():
+                _silence_stdout()  # e.g. `geothermmap probe ... | head -1`: the reader left
+                sys.exit(EXIT_USER_ERROR)
+            path = _users_path(err)
+            if path is not None:
                 # a file the user named could not be read or written (permissions, a
                 # folder in place of a file, a full disk...): theirs to fix, not a bug
-                _err(f"error: {err.filename}: {err.strerror or err}")
+                _err(f"error: {path}: {err.strerror or err}")
                 sys.exit(EXIT_USER_ERROR)
             _err(f"internal error: {type(err).__name__}: {err}\n"
                  "This is a bug in geothermmap or a library; rerun with --debug for details.")
             sys.exit(EXIT_INTERNAL_ERROR)
 
     return wrapper
+
+
+def _stdout_closed() -> bool:
+    """Whether stdout is a pipe whose reader has gone."""
+    try:
+        sys.stdout.flush()
+    except BrokenPipeError:
+        return True
+    except (OSError, ValueError):
+        return False
+    return False
+
+
+def _users_path(err: Exception) -> str | None:
+    """The path of an OSError about a file the user chose (the destination of a failed
+    rename rather than its temporary name); None for other errors, and for the tool's
+    own work files (a failure there is a bug)."""
+    if not isinstance(err, OSError) or isinstance(err, BrokenPipeError):
+        return None
+    path = err.filename2 or err.filename
+    if path is None or ".geothermmap-work" in str(path):
+        return None
+    return str(path)
 
 
 def _silence_stdout() -> None:

@@ -132,14 +132,16 @@ def apply_bounds(
     """
     counts = dict.fromkeys(BOUNDS_COUNTERS, 0)
     out = dict(cells)
-    offenders: list[tuple[int, str]] = []  # (first offending valid-cell position, what)
+    # (first offending valid-cell position, check order, what): at one cell the check
+    # made first (e.g. a fraction above 100 % before the texture sum it causes) is named
+    offenders: list[tuple[int, int, str]] = []
 
     def violation(name: str, mask: np.ndarray, what: str) -> int:
         n = int(np.count_nonzero(mask))
         counts[name] += n
         if strict:
             if n:
-                offenders.append((int(np.argmax(mask)), what))
+                offenders.append((int(np.argmax(mask)), len(offenders), what))
             return 0  # strict: no corrections, the block raises below
         return n  # the corrections below only run where there is something to correct
 
@@ -173,7 +175,7 @@ def apply_bounds(
     if not strict and wet.any():  # masked cells too: the property models see numbers
         out["water_content"] = np.where(wet, phi, out["water_content"])
     if offenders:
-        position, what = min(offenders)
+        position, _, what = min(offenders)
         flat = valid_index[position]
         r, c = (int(v) for v in np.unravel_index(flat, shape))
         raise CellBoundsError(f"{what} (first at {{where}}); fix the input or set "

@@ -772,8 +772,12 @@ def _write(zones_out, table, gpkg: Path) -> tuple[Path, Path]:
         table.to_csv(tmp_csv, index=False, float_format="%.7g")
         os.replace(tmp_gpkg, gpkg)
         os.replace(tmp_csv, csv)
-    except Exception as err:  # OSError, or the GDAL/OGR error of the GeoPackage writer
-        reason = getattr(err, "strerror", None) or str(err).splitlines()[0]
+    except Exception as err:
+        # an OSError, or the vector driver's error opening the file; anything else is a bug
+        if not (isinstance(err, OSError) or type(err).__module__.startswith(("pyogrio",
+                                                                             "fiona"))):
+            raise
+        reason = getattr(err, "strerror", None) or (str(err).splitlines() or [repr(err)])[0]
         raise UserError(f"cannot write the summary to {gpkg}: {reason}") from None
     finally:
         for tmp in (tmp_gpkg, tmp_csv):

@@ -509,3 +509,14 @@ def test_one_pixel_strip_is_a_valid_cog(tmp_path):
                      tmp_path / "o")
     with rasterio.open(res.outputs["t_mean"]) as ds:
         assert ds.overviews(1) == [] and np.isfinite(ds.read(1)).all()
+
+
+def test_strict_names_the_first_check_failed_at_a_cell():
+    # organic matter 3.0 given as a fraction also makes the particle density too low for
+    # the bulk density; the message names the cause (the fraction above 100 %)
+    from geothermmap.kernel import CellBoundsError, apply_bounds
+
+    cells = {k: np.array([v]) for k, v in {"sand": 0.4, "clay": 0.2, "water_content": 0.2,
+                                           "bulk_density": 1400.0, "organic_matter": 3.0}.items()}
+    with pytest.raises(CellBoundsError, match="organic_matter above 100 %"):
+        apply_bounds(cells, True, np.array([0]), (1, 1))

@@ -417,3 +417,27 @@ def test_dask_stays_lazy_and_xarray_keeps_coordinates():
             np.testing.assert_allclose(lz.compute(), r, rtol=0, atol=1e-9)
             assert x.dims == ("y", "x") and list(x["x"].values) == list(coords["x"])
             np.testing.assert_array_equal(x.values, r)
+
+
+def test_lazy_inputs_by_keyword_and_their_chunks_are_kept():
+    import dask.array as da
+    import xarray as xr
+
+    rng = np.random.default_rng(6)
+    fit = harmonics.fit_harmonics(rng.normal(6.0, 9.0, (12, 4, 6)), 2)
+    d = rng.uniform(1.5, 3.0, (4, 6))
+    thr = rng.uniform(3.0, 8.0, (4, 6))
+    ref = rootzone.degree_days(fit, d, 0.5, thr)
+    lazy_thr = da.from_array(thr, chunks=(2, 3))
+    lazy = rootzone.degree_days(fit, d, depth_m=0.5, base_degC=lazy_thr)
+    assert isinstance(lazy, da.Array) and lazy.numblocks == (2, 2)  # the map's chunks
+    np.testing.assert_array_equal(lazy.compute(), ref)
+    crossing = rootzone.threshold_crossings(fit, damping_depth_m=d, depth_m=0.5,
+                                            threshold_degC=xr.DataArray(thr, dims=("y", "x")))
+    assert crossing["days_above"].dims == ("y", "x")
+    # coefficients labelled with the harmonic dim last are found by its name
+    lab = HarmonicFit(xr.DataArray(fit.mean, dims=("y", "x")),
+                      xr.DataArray(np.moveaxis(fit.cos_coef, 0, -1), dims=("y", "x", "harmonic")),
+                      xr.DataArray(np.moveaxis(fit.sin_coef, 0, -1), dims=("y", "x", "harmonic")))
+    np.testing.assert_array_equal(periodic.frost_depth_conduction(lab, d).values,
+                                  periodic.frost_depth_conduction(fit, d))

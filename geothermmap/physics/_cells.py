@@ -40,19 +40,27 @@ def _kind(value: Any) -> str:
 def cellwise(layout: Callable[..., Layout]) -> Callable:
     """Decorator: dask and xarray inputs for ``fn(fit, damping_depth_m, *args, **kw)``.
 
-    ``layout(*args, **kw)`` (the arguments after the first two) tells the result's keys
-    and leading dims without computing anything, and which of ``args`` broadcast against
-    the cells; the others are passed unchanged.
+    ``layout(*args)`` (the arguments after the first two, keywords turned positional)
+    tells the result's keys and leading dims without computing anything, and which of
+    ``args`` broadcast against the cells; the others are passed unchanged.
     """
 
     def decorate(fn: Callable) -> Callable:
+        sig = inspect.signature(fn)
+
         @functools.wraps(fn)
-        def wrapper(fit: HarmonicFit, damping_depth_m: Any, *args: Any, **kwargs: Any):
-            values = (*fit, damping_depth_m, *args)
-            if any(_kind(v) == "xarray" for v in values):
-                return _with_xarray(wrapper, layout, fit, damping_depth_m, args, kwargs)
-            if any(_kind(v) == "dask" for v in values):
-                return _with_dask(fn, layout, fit, damping_depth_m, args, kwargs)
+        def wrapper(*call_args: Any, **call_kwargs: Any):
+            bound = sig.bind(*call_args, **call_kwargs)
+            fit, damping_depth_m, *args = bound.args
+            kwargs = bound.kwargs
+            spec = layout(*args, **kwargs)
+            cell_values = (*fit, damping_depth_m, *(args[i] for i in spec.cell_args
+                                                    if i < len(args)))
+            kinds = {_kind(v) for v in cell_values}
+            if "xarray" in kinds:
+                return _with_xarray(wrapper, spec, fit, damping_depth_m, args, kwargs)
+            if "dask" in kinds:
+                return _with_dask(fn, spec, fit, damping_depth_m, args, kwargs)
             return fn(fit, damping_depth_m, *args, **kwargs)
 
         return wrapper
@@ -60,26 +68,28 @@ def cellwise(layout: Callable[..., Layout]) -> Callable:
     return decorate
 
 
-def _with_dask(fn, layout, fit, damping_depth_m, args, kwargs):
+def _with_dask(fn, spec, fit, damping_depth_m, args, kwargs):
     import dask.array as da
 
-    spec = layout(*args, **kwargs)
     cells_of = [i in spec.cell_args and np.ndim(a) > 0 for i, a in enumerate(args)]
-    mean, cos_c, sin_c, dd = (da.asarray(v) for v in (*fit, damping_depth_m))
-    extra = [da.asarray(a) for a, is_cell in zip(args, cells_of, strict=True) if is_cell]
-    h = cos_c.shape[0]
-    shape = np.broadcast_shapes(mean.shape, cos_c.shape[1:], sin_c.shape[1:], dd.shape,
-                                *(e.shape for e in extra))
-    mean = da.broadcast_to(mean, shape)
-    chunks = mean.chunks
-    dd, *extra = (da.broadcast_to(v, shape).rechunk(chunks) for v in (dd, *extra))
-    cos_c, sin_c = (da.broadcast_to(v, (h, *shape)).rechunk(((h,), *chunks))
-                    for v in (cos_c, sin_c))
+    given = [fit.mean, damping_depth_m] + [a for a, c in zip(args, cells_of, strict=True) if c]
+    h = np.shape(fit.cos_coef)[0]
+    shape = np.broadcast_shapes(*(np.shape(v) for v in given), np.shape(fit.cos_coef)[1:],
+                                np.shape(fit.sin_coef)[1:])
+    full = [da.broadcast_to(da.asarray(v), shape) for v in given]
+    # the chunks of the first input that came lazy (not of a broadcast numpy array)
+    lazy = [f for f, v in zip(full, given, strict=True) if _kind(v) == "dask"]
+    if not lazy:  # only the coefficients are lazy: chunk like the first of them
+        lazy = [da.broadcast_to(da.asarray(fit.cos_coef), (h, *shape))[0]]
+    chunks = lazy[0].chunks
+    mean, dd, *extra = (f.rechunk(chunks) for f in full)
+    cos_c, sin_c = (da.broadcast_to(da.asarray(v), (h, *shape)).rechunk(((h,), *chunks))
+                    for v in (fit.cos_coef, fit.sin_coef))
 
     def block(mean_b, cos_b, sin_b, dd_b, *extra_b):
         it = iter(extra_b)
-        full = [next(it) if is_cell else a for a, is_cell in zip(args, cells_of, strict=True)]
-        out = fn(HarmonicFit(mean_b, cos_b, sin_b), dd_b, *full, **kwargs)
+        filled = [next(it) if c else a for a, c in zip(args, cells_of, strict=True)]
+        out = fn(HarmonicFit(mean_b, cos_b, sin_b), dd_b, *filled, **kwargs)
         out = out if spec.keys is None else np.stack([out[k] for k in spec.keys])
         return np.asarray(out, dtype=np.float64)
 
@@ -95,27 +105,50 @@ def _with_dask(fn, layout, fit, damping_depth_m, args, kwargs):
     return out if spec.keys is None else {k: out[i] for i, k in enumerate(spec.keys)}
 
 
-def _with_xarray(wrapper, layout, fit, damping_depth_m, args, kwargs):
+def _with_xarray(wrapper, spec, fit, damping_depth_m, args, kwargs):
+    """Broadcast the xarray inputs by dim name, hand their data (in one dim order) to the
+    numpy/dask path, and label the results with those dims and coordinates. Plain arrays
+    among the inputs broadcast against the cells by position, as in numpy."""
     import xarray as xr
 
-    template = next(v for v in (damping_depth_m, fit.mean, *args, *fit)
-                    if _kind(v) == "xarray")
-    cell_dims = template.dims if template is not fit.cos_coef and template is not \
-        fit.sin_coef else template.dims[1:]
+    cells = {"mean": fit.mean, "dd": damping_depth_m}
+    cells.update({i: args[i] for i in spec.cell_args if i < len(args)})
+    coefs = {"cos": fit.cos_coef, "sin": fit.sin_coef}
+    stand_ins = [v for v in cells.values() if _kind(v) == "xarray"]
+    cell_dim_names = {d for v in stand_ins for d in v.dims}
 
-    def data(v):
-        return v.data if _kind(v) == "xarray" else v
+    def harmonic_dim(v) -> str:  # "harmonic", else the one dim the cells lack, else first
+        others = [d for d in v.dims if d not in cell_dim_names]
+        return "harmonic" if "harmonic" in v.dims else (others[0] if len(others) == 1
+                                                          else v.dims[0])
 
-    out = wrapper(HarmonicFit(*(data(v) for v in fit)), data(damping_depth_m),
-                  *(data(a) for a in args), **kwargs)
-    spec = layout(*args, **kwargs)
-    dims = tuple(name for name, _ in spec.leading) + tuple(cell_dims)
-    coords = {name: c for name, c in template.coords.items()
-              if set(template.coords[name].dims) <= set(cell_dims)}
-    coords.update({name: (name, np.asarray(values)) for name, values in spec.leading})
+    stand_ins += [v.isel({harmonic_dim(v): 0}, drop=True) for v in coefs.values()
+                  if _kind(v) == "xarray"]
+    template = xr.broadcast(*stand_ins)[0] if len(stand_ins) > 1 else stand_ins[0]
+    template = xr.zeros_like(template)  # dims, shape and the merged cell coordinates
+    dims = template.dims
+    lead_names = tuple(name if name not in dims else f"{name}_out" for name, _ in spec.leading)
+
+    def cell_data(v):
+        return v.broadcast_like(template).transpose(*dims).data if _kind(v) == "xarray" else v
+
+    def coef_data(v):
+        if _kind(v) != "xarray":
+            return v
+        return v.broadcast_like(template).transpose(harmonic_dim(v), *dims).data
+
+    plain = {k: cell_data(v) for k, v in cells.items()}
+    new_args = [plain.get(i, a) for i, a in enumerate(args)]
+    out = wrapper(HarmonicFit(plain["mean"], coef_data(coefs["cos"]), coef_data(coefs["sin"])),
+                  plain["dd"], *new_args, **kwargs)
+    coords = dict(template.coords)
+    coords.update({n: (n, np.asarray(values))
+                   for n, (_, values) in zip(lead_names, spec.leading, strict=True)})
 
     def wrap(values):
-        return xr.DataArray(values, dims=dims, coords=coords)
+        if np.ndim(values) != len(lead_names) + len(dims):  # plain arrays added dims
+            return values
+        return xr.DataArray(values, dims=lead_names + dims, coords=coords)
 
     return wrap(out) if spec.keys is None else {k: wrap(v) for k, v in out.items()}
 
@@ -146,6 +179,10 @@ def elementwise(*cell_params: str, dtype: Any = np.float64) -> Callable:
                 return wrapper(**{**bound.arguments, **dict(zip(keys, values, strict=True))})
 
             if "xarray" in kinds:
+                if any(_kind(v) != "xarray" and np.ndim(v) > 0 for v in cells.values()):
+                    # plain arrays broadcast by position: do the same with the xarray data
+                    return call(*(v.data if _kind(v) == "xarray" else v
+                                  for v in cells.values()))
                 import xarray as xr
 
                 return xr.apply_ufunc(call, *cells.values(), dask="allowed")

@@ -1184,7 +1184,8 @@ def _flatten_cells(fit: HarmonicFit, damping_depth_m: ArrayLike):
     h = cos_coef.shape[0]
     shape = np.broadcast_shapes(mean.shape, cos_coef.shape[1:], dd.shape)
     def contiguous(a: np.ndarray, lead: tuple) -> np.ndarray:  # -> (*lead, cells)
-        a = np.ascontiguousarray(np.broadcast_to(a, lead + shape))
+        full = lead + shape
+        a = np.ascontiguousarray(a if a.shape == full else np.broadcast_to(a, full))
         # read-only blocks (e.g. from dask) would make numba compile the kernels again
         return (a if a.flags.writeable else a.copy()).reshape(*lead, -1)
 
