@@ -61,14 +61,16 @@ def handle_errors(fn: Callable[..., Any]) -> Callable[..., Any]:
 
 
 def _stdout_closed() -> bool:
-    """Whether stdout is a pipe whose reader has gone."""
+    """Whether stdout is a pipe whose reader has gone (poll reports an error on the
+    write end of such a pipe)."""
+    import select
+
     try:
-        sys.stdout.flush()
-    except BrokenPipeError:
-        return True
-    except (OSError, ValueError):
+        poller = select.poll()
+        poller.register(sys.stdout.fileno(), select.POLLOUT)
+        return any(ev & (select.POLLERR | select.POLLHUP) for _, ev in poller.poll(0))
+    except (OSError, ValueError, AttributeError):  # no fileno (e.g. captured), or no poll
         return False
-    return False
 
 
 def _users_path(err: Exception) -> str | None:
