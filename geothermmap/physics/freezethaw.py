@@ -704,29 +704,8 @@ def _freeze_thaw_kernel(
             bad[s] = 0
             iters[s] = 0
             corr[s] = 0.0
-            _load_slot(
-                s,
-                c,
-                par,
-                ku_a,
-                kf_a,
-                cu_a,
-                cf_a,
-                lv_a,
-                qb_a,
-                t_init,
-                t_lo,
-                t_hi,
-                T,
-                H,
-                t_start,
-                tmn,
-                tmx,
-                tsum,
-                fdays,
-                tmin_c,
-                tmax_c,
-            )
+            _load_slot(s, c, par, ku_a, kf_a, cu_a, cf_a, lv_a, qb_a, t_init, t_lo, t_hi,
+                       T, H, t_start, tmn, tmx, tsum, fdays, tmin_c, tmax_c)  # fmt: skip
             _reset_winter(s, thawed, tmn_w)
         if n_active == 0:
             break
