@@ -170,6 +170,35 @@ def depth_table(res: ProbeResult, depths_m: tuple[float, ...] | None = None) -> 
     return rows
 
 
+def probe_record(res: ProbeResult, x: float, y: float, crs: str) -> dict:
+    """Everything the probe found, for JSON: the point, the inputs in canonical units and
+    every output of the recipe band by band (null for nodata), as in the maps."""
+    from geothermmap.pipeline import band_descriptions
+
+    def num(v: float) -> float | None:
+        return float(v) if math.isfinite(v) else None
+
+    outputs = {}
+    for name in res.plan.outputs:
+        labels = [desc for desc, _ in band_descriptions(res.plan, name)]
+        values = res.outputs[name]
+        if OUTPUTS[name].per_depth:  # the recipe's depths (the probe may hold more)
+            values = [values[res.depths_m.index(d)] for d in res.plan.config.depths_m]
+        outputs[name] = {"units": OUTPUTS[name].units,
+                         "bands": [{"band": desc, "value": num(v)}
+                                   for desc, v in zip(labels, values, strict=True)]}
+    record = {
+        "point": {"x": x, "y": y, "crs": crs, "grid_x": res.x, "grid_y": res.y,
+                  "grid_crs": res.plan.grid.crs.to_string(), "row": res.row, "col": res.col},
+        "inputs": {name: {"units": _INPUT_UNITS.get(name, ""), "values": [num(v) for v in vals]}
+                   for name, vals in res.inputs.items()},
+        "outputs": outputs,
+    }
+    if any(OUTPUTS[n].frost for n in res.plan.outputs):
+        record["caution"] = FROST_CAUTION
+    return record
+
+
 def _fmt(v: float) -> str:
     return "nodata" if not math.isfinite(v) else f"{v:.4g}"
 
@@ -282,15 +311,23 @@ def _check_plot_path(path: Path) -> None:
               help="Also draw the annual envelope and dated profiles to a PNG.")
 @click.option("--csv", "as_csv", is_flag=True,
               help="Print the depth table as CSV on stdout (nothing else).")
+@click.option("--json", "as_json", is_flag=True,
+              help="Print everything (point, inputs, every output band) as JSON on stdout.")
 @handle_errors
 def probe(recipe: Path, at: tuple[float, float], crs: str, plot: Path | None,
-          as_csv: bool) -> None:
+          as_csv: bool, as_json: bool) -> None:
     """Inputs, soil properties and the temperature profile of RECIPE at one point."""
+    if as_csv and as_json:
+        raise UserError("give --csv or --json, not both")
     x, y = at
     if plot is not None:
         _check_plot_path(plot)
     res = probe_point(recipe, x, y, crs)
-    if as_csv:
+    if as_json:
+        import json
+
+        click.echo(json.dumps(probe_record(res, x, y, crs), indent=2))
+    elif as_csv:
         rows = depth_table(res)
         writer = csv.DictWriter(sys.stdout, fieldnames=list(rows[0]), lineterminator="\n")
         writer.writeheader()
@@ -301,7 +338,7 @@ def probe(recipe: Path, at: tuple[float, float], crs: str, plot: Path | None,
         _print_report(res, x, y, crs)
     if plot is not None:
         out = write_plot(res, plot)
-        if not as_csv:
+        if not (as_csv or as_json):
             click.echo(f"plot: {out}")
 
 

@@ -118,3 +118,24 @@ def test_probe_unwritable_plot_and_closed_pipe_are_not_internal_errors(case, tmp
     err = proc.stderr.read().decode()
     proc.wait(timeout=60)
     assert "internal error" not in err and "Traceback" not in err, err
+
+
+def test_probe_json_holds_every_output_band_as_in_the_maps(case) -> None:
+    import json
+
+    recipe, result = case
+    row, col = 33, 47
+    x, y = X0 + (col + 0.5) * RES, Y0 - (row + 0.5) * RES
+    out = CliRunner().invoke(main, ["probe", str(recipe), "--at", str(x), str(y), "--crs",
+                                    UTM, "--json"])
+    assert out.exit_code == 0, out.output
+    rec = json.loads(out.output)
+    assert (rec["point"]["row"], rec["point"]["col"]) == (row, col)
+    assert set(rec["outputs"]) == set(result.outputs)
+    for name, path in result.outputs.items():
+        got = np.array([np.nan if b["value"] is None else b["value"]
+                        for b in rec["outputs"][name]["bands"]])
+        np.testing.assert_allclose(got, _map_values(path, row, col), rtol=1e-6, atol=1e-6,
+                                   err_msg=name)
+    assert "Screening" in rec["caution"]
+    assert len(rec["inputs"]["surface_temperature"]["values"]) == 12
