@@ -79,8 +79,10 @@ def _users_path(err: Exception) -> str | None:
     own work files (a failure there is a bug)."""
     if not isinstance(err, OSError) or isinstance(err, BrokenPipeError):
         return None
+    from geothermmap.pipeline import WORK_DIR_NAME  # only on this error path: heavy import
+
     path = err.filename2 or err.filename
-    if path is None or ".geothermmap-work" in str(path):
+    if path is None or WORK_DIR_NAME in str(path):
         return None
     return str(path)
 

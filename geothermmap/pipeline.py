@@ -447,8 +447,7 @@ def scan_strict_bounds(plan: RunPlan) -> None:
             compute_block(_read_inputs(ctx, window), config)
         except CellBoundsError as err:
             found.append(_bounds_error_on_grid(plan.grid, window, err))
-    if found:
-        raise PhysicalBoundsError(min(found)[2])
+    _raise_first_bounds_error(found)
 
 
 def run_overview(ctx: RunContext, task: OverviewTask, *blocks_done: Any) -> None:
@@ -747,7 +746,8 @@ def run_recipe(
             parts = _execute(tasks, ctx, workers=workers, scheduler=scheduler, progress=tick,
                              overviews=overview_tasks(tasks, pyramid))
             timings["compute_s"] = time.perf_counter() - t1
-            _raise_first_bounds_error(parts)
+            _raise_first_bounds_error([p["bounds_error"] for p in parts
+                                       if p and p.get("bounds_error")])
             summary, counts = _combine(parts, plan.outputs)
             rec["counts"] = counts
             rec["counts"]["uncovered_input_fraction"] = {
@@ -801,10 +801,10 @@ def run_recipe(
     return RunResult(out, paths, out / RECORD_NAME, rec)
 
 
-def _raise_first_bounds_error(parts: list[dict[str, Any]]) -> None:
+def _raise_first_bounds_error(found: list[list]) -> None:
     """Under ``strict``: raise for the offending cell first in raster order of the grid
-    (the same cell whatever order the blocks ran in)."""
-    found = [p["bounds_error"] for p in parts if p and p.get("bounds_error")]
+    (the same cell whatever order the blocks ran in); ``found``: [row, col, message] of
+    each block's first offender."""
     if found:
         raise PhysicalBoundsError(min(found)[2])
 
